@@ -1,0 +1,259 @@
+"""The typed, immutable results of a run and their JSON form.
+
+``StudyResults`` is the only contract between computing and rendering: results.json is
+written from it, the templates, the table exports and (later) the verify command read
+it. A statistic that does not apply is stored as ``NotApplicable`` with its reason,
+never as a silent blank. Floats that are not finite never reach JSON.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator
+
+SCHEMA_VERSION = "1.0.0"
+
+
+class _Frozen(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class NotApplicable(_Frozen):
+    """A statistic that was not computed, and why (e.g. 'just-identified')."""
+
+    kind: Literal["not_applicable"] = "not_applicable"
+    reason: str
+
+
+class TestResult(_Frozen):
+    """A hypothesis test: statistic, its reference distribution and p-value."""
+
+    kind: Literal["test"] = "test"
+    name: str
+    statistic: float
+    distribution: Literal["chi2", "F", "normal"]
+    df: list[float] = Field(description="Degrees of freedom (one for chi2, two for F).")
+    p_value: float
+    covariance: str = Field(description="Covariance the statistic was computed with.")
+    null: str = Field(description="The null hypothesis in words.")
+    reference: str = Field(description="Author, year of the method.")
+
+    @field_validator("statistic", "p_value")
+    @classmethod
+    def _finite(cls, v: float) -> float:
+        if not math.isfinite(v):
+            raise ValueError("test statistics stored in results must be finite")
+        return v
+
+
+TestOrNA = TestResult | NotApplicable
+
+
+class Coefficient(_Frozen):
+    """One estimated coefficient with its uncertainty."""
+
+    name: str
+    label: str
+    estimate: float
+    std_error: float
+    statistic: float = Field(description="estimate / std_error")
+    p_value: float
+    ci_lower: float
+    ci_upper: float
+
+
+class EstimatorResult(_Frozen):
+    """One estimator's coefficients on the endogenous regressors.
+
+    Controls and fixed effects are partialled out before estimation (Frisch-Waugh-
+    Lovell), so their coefficients are not reported.
+    """
+
+    estimator: Literal["ols", "2sls", "liml", "gmm"]
+    label: str
+    coefficients: list[Coefficient]
+    kappa: float | None = Field(
+        default=None, description="k-class parameter: 0 for OLS, 1 for 2SLS, LIML's estimate."
+    )
+    n_obs: int
+    df_model: int = Field(description="Columns used by the model, absorbed effects included.")
+    covariance: str
+    sigma: float = Field(description="Residual standard deviation (degrees-of-freedom corrected).")
+    hansen_j: TestOrNA | None = Field(
+        default=None, description="GMM only: Hansen's J from the two-step weight."
+    )
+
+
+class FirstStageCoefficient(_Frozen):
+    instrument: str
+    label: str
+    estimate: float
+    std_error: float
+    p_value: float
+    sign: Literal["positive", "negative", "zero"]
+
+
+class BinnedScatter(_Frozen):
+    """Binned means of an endogenous regressor against one instrument.
+
+    Both are residualised on the controls, fixed effects and the other instruments
+    (Frisch-Waugh-Lovell), so the fitted line's slope is the first-stage coefficient.
+    Bins are quantiles of the instrument residual (fewer when it takes few values).
+    """
+
+    instrument: str
+    x: list[float]
+    y: list[float]
+    count: list[int]
+    slope: float
+    intercept: float
+
+
+class FirstStage(_Frozen):
+    """Regression of one endogenous regressor on the instruments and controls."""
+
+    endogenous: str
+    label: str
+    coefficients: list[FirstStageCoefficient]
+    partial_r2: float = Field(description="R-squared of the instruments after partialling out.")
+    f_main: TestResult = Field(
+        description="Joint test of the excluded instruments with the main covariance."
+    )
+    f_classical: TestResult = Field(description="The same test assuming iid errors.")
+    binned: list[BinnedScatter] = Field(default_factory=list)
+
+
+class ReducedForm(_Frozen):
+    """Regression of the outcome on the instruments and controls."""
+
+    coefficients: list[FirstStageCoefficient]
+    joint_test: TestResult
+
+
+class SampleStep(_Frozen):
+    step: str
+    rows_removed: int
+    rows_remaining: int
+
+
+class MissingCount(_Frozen):
+    column: str
+    rows_removed: int = Field(description="Rows removed because this column was missing.")
+
+
+class CodingNote(_Frozen):
+    column: str
+    coding: str
+
+
+class SampleAccount(_Frozen):
+    """How the estimation sample was built from the file."""
+
+    rows_read: int
+    steps: list[SampleStep]
+    missing_by_column: list[MissingCount]
+    singletons_removed: int
+    rows_used: int
+    clusters_used: list[int] = Field(default_factory=list)
+    fixed_effect_levels: list[int] = Field(default_factory=list)
+    codings: list[CodingNote] = Field(default_factory=list)
+    dropped_columns: list[CodingNote] = Field(
+        default_factory=list, description="Control columns dropped as constant or collinear."
+    )
+
+
+class InputFile(_Frozen):
+    role: str
+    name: str
+    sha256: str
+    size_bytes: int
+
+
+class CrossCheck(_Frozen):
+    """Agreement of the main estimates with an independent re-fit in linearmodels."""
+
+    estimator: str
+    max_rel_diff_estimate: float
+    max_rel_diff_std_error: float
+    agrees: bool
+
+
+class Provenance(_Frozen):
+    inputs: list[InputFile]
+    python: str
+    packages: dict[str, str]
+    seed: int
+    crosschecks: list[CrossCheck] | NotApplicable
+
+
+class Conventions(_Frozen):
+    """Degrees-of-freedom and small-sample conventions, stated once."""
+
+    covariance: str
+    covariance_description: str
+    small_sample: str
+    reference_distribution: str
+    confidence_level: float
+
+
+class Diagnostics(_Frozen):
+    sargan: TestOrNA
+    hansen_j: TestOrNA
+    endogeneity: TestOrNA
+
+
+class ModelDescription(_Frozen):
+    outcome: str
+    endogenous: list[str]
+    instruments: list[str]
+    controls: list[str]
+    fixed_effects: list[str]
+    cluster_by: list[str]
+    weights: str | None
+    labels: dict[str, str]
+    n_instruments: int
+    n_endogenous: int
+    overidentification_degree: int
+
+
+class StudyInfo(_Frozen):
+    title: str
+    authors: list[str]
+    summary: str
+
+
+class StudyResults(_Frozen):
+    """Everything a run computed, in one immutable object."""
+
+    schema_version: str = SCHEMA_VERSION
+    study: StudyInfo
+    model: ModelDescription
+    conventions: Conventions
+    sample: SampleAccount
+    estimates: list[EstimatorResult]
+    first_stages: list[FirstStage]
+    reduced_form: ReducedForm
+    ols_2sls_ratio: list[float | None] = Field(
+        description="2SLS / OLS per endogenous regressor (None when OLS is zero or absent)."
+    )
+    diagnostics: Diagnostics
+    provenance: Provenance
+
+    def to_json(self) -> str:
+        """Canonical JSON: sorted keys, fixed float repr, trailing newline."""
+        return json.dumps(self.model_dump(mode="json"), indent=2, sort_keys=True) + "\n"
+
+    @classmethod
+    def from_json(cls, text: str) -> StudyResults:
+        return cls.model_validate(json.loads(text))
+
+
+def json_schema() -> dict[str, Any]:
+    """The published JSON Schema of results.json."""
+    schema = StudyResults.model_json_schema()
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["title"] = f"reportkit results, schema version {SCHEMA_VERSION}"
+    return schema

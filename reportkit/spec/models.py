@@ -1,0 +1,272 @@
+"""The analysis specification: pydantic models, strict about unknown keys.
+
+A spec is the single input that drives a run. Every field has a documented default;
+after validation the fully resolved spec (all defaults filled in) is written into the
+bundle so that a data editor sees exactly what was run. Cross-field rules that need the
+data (does a column exist, is it numeric) live in ``reportkit.data``; rules that need
+only the spec (a variable in two roles, too few instruments) live here.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+ESTIMATORS: tuple[str, ...] = ("ols", "2sls", "liml", "gmm")
+COVARIANCES: tuple[str, ...] = ("classical", "robust", "cluster")
+COMPARISONS: tuple[str, ...] = (
+    "equal_to",
+    "not_equal_to",
+    "less_than",
+    "at_most",
+    "greater_than",
+    "at_least",
+    "one_of",
+    "not_one_of",
+    "is_missing",
+    "is_present",
+)
+
+Estimator = Literal["ols", "2sls", "liml", "gmm"]
+Covariance = Literal["classical", "robust", "cluster"]
+Comparison = Literal[
+    "equal_to",
+    "not_equal_to",
+    "less_than",
+    "at_most",
+    "greater_than",
+    "at_least",
+    "one_of",
+    "not_one_of",
+    "is_missing",
+    "is_present",
+]
+Scalar = str | int | float | bool
+ColumnName = Annotated[str, Field(min_length=1)]
+
+
+class _Strict(BaseModel):
+    """Base: unknown keys are errors, objects are immutable once validated."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True, str_strip_whitespace=True)
+
+
+class StudySection(_Strict):
+    """Who wrote the analysis and what it is about; shown in the title block."""
+
+    title: str = Field(min_length=1, description="Title of the study, shown on every page.")
+    authors: list[str] = Field(default_factory=list, description="Author names, in order.")
+    summary: str = Field(default="", description="A short paragraph describing the study.")
+
+
+class RowFilter(_Strict):
+    """Keep only the rows where ``column`` satisfies ``keep_if`` against ``value``.
+
+    Filters are structured conditions, never code: nothing from a spec is evaluated.
+    """
+
+    column: ColumnName
+    keep_if: Comparison = Field(description="How the column is compared with value.")
+    value: Scalar | list[Scalar] | None = Field(
+        default=None,
+        description="The value compared against; a list for one_of / not_one_of; "
+        "omitted for is_missing / is_present.",
+    )
+
+    @model_validator(mode="after")
+    def _value_matches_comparison(self) -> RowFilter:
+        needs_list = self.keep_if in ("one_of", "not_one_of")
+        needs_none = self.keep_if in ("is_missing", "is_present")
+        if needs_none and self.value is not None:
+            raise ValueError(f"'{self.keep_if}' takes no value; remove 'value'")
+        if needs_list and not isinstance(self.value, list):
+            raise ValueError(f"'{self.keep_if}' needs a list of values, e.g. value: [1, 2]")
+        if not needs_list and not needs_none:
+            if self.value is None:
+                raise ValueError(f"'{self.keep_if}' needs a value")
+            if isinstance(self.value, list):
+                raise ValueError(f"'{self.keep_if}' takes a single value, not a list")
+        if self.keep_if in ("less_than", "at_most", "greater_than", "at_least") and (
+            isinstance(self.value, bool) or not isinstance(self.value, int | float)
+        ):
+            raise ValueError(f"'{self.keep_if}' compares numbers; value must be a number")
+        return self
+
+
+class DataSection(_Strict):
+    """Where the data are, how to check them and which rows to keep."""
+
+    path: str = Field(
+        min_length=1,
+        description="Data file, relative to the spec file. Read by extension: "
+        ".csv, .tsv, .parquet, .dta, .sav.",
+    )
+    sha256: str | None = Field(
+        default=None,
+        pattern=r"^[0-9a-fA-F]{64}$",
+        description="Expected SHA-256 of the data file; a mismatch stops the run.",
+    )
+    missing_codes: list[Scalar] = Field(
+        default_factory=list,
+        description="Values that mean 'missing' in any column (e.g. -99, '.', 'NA').",
+    )
+    filters: list[RowFilter] = Field(
+        default_factory=list, description="Row filters, applied in order."
+    )
+
+
+class ModelSection(_Strict):
+    """The structural equation and the instrument set.
+
+    outcome = endogenous * beta + controls * gamma + fixed effects + error, with the
+    endogenous regressors instrumented by ``instruments``; controls are always part
+    of the instrument set.
+    """
+
+    outcome: ColumnName
+    endogenous: list[ColumnName] = Field(min_length=1, description="Endogenous regressors.")
+    instruments: list[ColumnName] = Field(min_length=1, description="Excluded instruments.")
+    controls: list[ColumnName] = Field(
+        default_factory=list, description="Numeric or boolean exogenous controls."
+    )
+    categorical_controls: list[ColumnName] = Field(
+        default_factory=list,
+        description="Exogenous controls coded as one indicator per level "
+        "(the first level in sorted order is the reference).",
+    )
+    fixed_effects: list[ColumnName] = Field(
+        default_factory=list,
+        description="Categorical variables whose effects are absorbed (partialled out).",
+    )
+    cluster_by: list[ColumnName] = Field(
+        default_factory=list,
+        max_length=2,
+        description="One or two variables defining clusters for the covariance.",
+    )
+    weights: ColumnName | None = Field(
+        default=None, description="Column of non-negative analytic weights, used in every stage."
+    )
+    labels: dict[str, str] = Field(
+        default_factory=dict, description="Readable labels for column names in the appendix."
+    )
+
+    @model_validator(mode="after")
+    def _roles_are_distinct(self) -> ModelSection:
+        roles: dict[str, list[str]] = {}
+        single = {"outcome": [self.outcome]}
+        if self.weights:
+            single["weights"] = [self.weights]
+        groups = {
+            **single,
+            "endogenous": self.endogenous,
+            "instruments": self.instruments,
+            "controls": self.controls,
+            "categorical_controls": self.categorical_controls,
+            "fixed_effects": self.fixed_effects,
+        }
+        for role, names in groups.items():
+            seen: set[str] = set()
+            for name in names:
+                if name in seen:
+                    raise ValueError(f"'{name}' is listed twice in model.{role}")
+                seen.add(name)
+                roles.setdefault(name, []).append(role)
+        for name, where in roles.items():
+            if len(where) > 1:
+                raise ValueError(
+                    f"'{name}' appears in two roles ({' and '.join('model.' + w for w in where)}); "
+                    "a variable can play only one role"
+                )
+        if len(self.instruments) < len(self.endogenous):
+            raise ValueError(
+                f"{len(self.instruments)} instrument(s) for {len(self.endogenous)} endogenous "
+                "regressor(s): the model is under-identified; list at least as many "
+                "instruments as endogenous regressors"
+            )
+        if len(set(self.cluster_by)) != len(self.cluster_by):
+            raise ValueError("model.cluster_by lists the same variable twice")
+        return self
+
+
+class InferenceSection(_Strict):
+    """How uncertainty is measured."""
+
+    covariance: Covariance | None = Field(
+        default=None,
+        description="classical, robust or cluster. Default: cluster when model.cluster_by "
+        "is given, robust otherwise.",
+    )
+    confidence_level: float = Field(default=0.95, gt=0.5, lt=1.0)
+
+
+class RunSection(_Strict):
+    """Where the bundle goes and how the run is made reproducible."""
+
+    output: str = Field(
+        default="reportkit-output",
+        min_length=1,
+        description="Bundle folder, relative to the spec file.",
+    )
+    seed: int = Field(
+        default=20240601,
+        ge=0,
+        lt=2**63,
+        description="Master seed; every random procedure derives its own seed from it.",
+    )
+    crosscheck: Literal["auto", "always", "never"] = Field(
+        default="auto",
+        description="Re-fit the main estimates with linearmodels: auto = when the sample "
+        "is small enough for it to take a few seconds.",
+    )
+
+
+class Spec(_Strict):
+    """A complete reportkit specification."""
+
+    study: StudySection
+    data: DataSection
+    model: ModelSection
+    estimators: list[Estimator] = Field(
+        default_factory=lambda: list(ESTIMATORS),
+        min_length=1,
+        description="Estimators to report, from: " + ", ".join(ESTIMATORS),
+    )
+    inference: InferenceSection = Field(default_factory=InferenceSection)
+    run: RunSection = Field(default_factory=RunSection)
+
+    @field_validator("estimators")
+    @classmethod
+    def _no_repeats(cls, v: list[str]) -> list[str]:
+        if len(set(v)) != len(v):
+            raise ValueError("an estimator is listed twice")
+        # canonical order, so that tables always read OLS, 2SLS, LIML, GMM
+        return [e for e in ESTIMATORS if e in v]
+
+    @model_validator(mode="after")
+    def _covariance_needs_clusters(self) -> Spec:
+        cov = self.inference.covariance
+        if cov == "cluster" and not self.model.cluster_by:
+            raise ValueError(
+                "inference.covariance is 'cluster' but model.cluster_by is empty; "
+                "name the cluster variable(s) or choose 'robust'"
+            )
+        if cov in ("classical", "robust") and self.model.cluster_by:
+            raise ValueError(
+                f"inference.covariance is '{cov}' but model.cluster_by is given; "
+                "remove cluster_by or choose 'cluster'"
+            )
+        return self
+
+    @property
+    def covariance(self) -> Covariance:
+        """The covariance actually used, after the default rule is applied."""
+        if self.inference.covariance is not None:
+            return self.inference.covariance
+        return "cluster" if self.model.cluster_by else "robust"
+
+    def resolved(self) -> Spec:
+        """A copy with every default made explicit (written to the bundle)."""
+        return self.model_copy(
+            update={"inference": self.inference.model_copy(update={"covariance": self.covariance})}
+        )
