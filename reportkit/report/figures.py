@@ -1,0 +1,291 @@
+"""Figures of the appendix, drawn with matplotlib from a ``StudyResults`` only.
+
+Two kinds, one figure per endogenous regressor each:
+
+- the first stage: binned means of the endogenous regressor against each instrument
+  (both residualised, Frisch-Waugh-Lovell), with the fitted first-stage line;
+- the estimates: each estimator's point estimate with its confidence interval.
+
+Output is SVG text, byte-identical for the same results: the SVG hash salt is fixed,
+the date is left out of the metadata, and figure size, fonts and palette are fixed.
+Figures are built on ``matplotlib.figure.Figure`` directly (no pyplot), so no global
+figure state is touched and no GUI backend is needed. For HTML and PDF they are used as
+``data:`` URIs in ``<img>``: inlined ``<svg>`` makes weasyprint warn on every render.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import textwrap
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+from reportkit.report.formatting import fmt_ci, fmt_int, fmt_num, fmt_pct, label, upper_first
+from reportkit.results import (
+    BinnedScatter,
+    Coefficient,
+    EstimatorResult,
+    FirstStage,
+    StudyResults,
+)
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
+# Our palette: calm, print-friendly, distinguishable in greyscale by lightness.
+INK = "#2b3640"  # text and axes
+GRID = "#dde3e6"
+ZERO_LINE = "#9aa5ab"
+POINTS = "#3d7c8c"  # binned means (deep teal)
+FIT_LINE = "#b5763a"  # fitted first-stage line (muted amber)
+OLS_COLOUR = "#7d8a93"  # OLS: slate, the non-causal benchmark
+IV_COLOURS = {"2sls": "#2f5f73", "liml": "#5b8c6e", "gmm": "#8a6a9a"}  # blue, sage, heather
+
+ESTIMATOR_NAMES = {"ols": "OLS", "2sls": "2SLS", "liml": "LIML", "gmm": "GMM"}
+ESTIMATOR_ORDER = ("ols", "2sls", "liml", "gmm")
+
+PANEL_SIZE = (3.4, 3.1)  # inches, one first-stage panel
+WRAP_WIDTH = 44  # characters per line of a panel title or axis label
+ESTIMATES_WIDTH = 6.4  # inches
+ESTIMATES_ROW_HEIGHT = 0.42  # inches per estimator
+ESTIMATES_BASE_HEIGHT = 1.3  # inches for axis and margins
+
+_RC: dict[str, Any] = {
+    "svg.hashsalt": "reportkit",
+    "svg.fonttype": "path",
+    "font.family": "sans-serif",
+    "font.sans-serif": ["DejaVu Sans"],
+    "font.size": 9,
+    "axes.titlesize": 9.5,
+    "axes.labelsize": 9,
+    "xtick.labelsize": 8,
+    "ytick.labelsize": 8.5,
+    "axes.edgecolor": INK,
+    "axes.labelcolor": INK,
+    "text.color": INK,
+    "xtick.color": INK,
+    "ytick.color": INK,
+    "axes.linewidth": 0.7,
+    "path.simplify": False,
+}
+
+
+@dataclass(frozen=True)
+class FigureImage:
+    """One rendered figure: SVG text, alt text for screen readers, a caption."""
+
+    key: str
+    svg: str
+    alt: str
+    caption: str
+
+    @property
+    def data_uri(self) -> str:
+        return svg_data_uri(self.svg)
+
+    @property
+    def filename(self) -> str:
+        """File name in the bundle's figures folder, e.g. "estimates-1.svg"."""
+        return f"{self.key}.svg"
+
+
+def svg_data_uri(svg: str) -> str:
+    """The SVG as a ``data:image/svg+xml;base64,...`` URI for ``<img src>``."""
+    encoded = base64.b64encode(svg.encode("utf-8")).decode("ascii")
+    return f"data:image/svg+xml;base64,{encoded}"
+
+
+def estimates_key(index: int) -> str:
+    """Figure key (and file stem) of the estimates figure of endogenous regressor ``index``."""
+    return f"estimates-{index + 1}"
+
+
+def first_stage_key(index: int) -> str:
+    """Figure key (and file stem) of the first-stage figure of endogenous regressor ``index``."""
+    return f"first-stage-{index + 1}"
+
+
+@contextmanager
+def _style() -> Iterator[None]:
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        yield
+
+
+def _new_figure(width: float, height: float) -> Figure:
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=(width, height), dpi=100, layout="constrained")
+
+
+def _to_svg(fig: Figure) -> str:
+    buffer = io.StringIO()
+    fig.savefig(buffer, format="svg", metadata={"Date": None})
+    return buffer.getvalue()
+
+
+def _tidy_axes(ax: Axes) -> None:
+    ax.spines["top"].set_visible(False)
+    ax.spines["right"].set_visible(False)
+    ax.grid(True, color=GRID, linewidth=0.6)
+    ax.set_axisbelow(True)
+
+
+def _wrap(text: str, width: int = WRAP_WIDTH) -> str:
+    """Wrap a label for a figure; a dollar sign is escaped so it is not read as mathtext."""
+    plain = text.replace("$", r"\$")
+    return "\n".join(textwrap.wrap(plain, width, break_on_hyphens=False)) or plain
+
+
+def _draw_binned(ax: Axes, binned: BinnedScatter, x_label: str, y_label: str) -> None:
+    largest = max(binned.count) if binned.count else 1
+    sizes = [14 + 46 * c / largest for c in binned.count]
+    ax.scatter(binned.x, binned.y, s=sizes, color=POINTS, alpha=0.85, linewidths=0)
+    lo, hi = min(binned.x), max(binned.x)
+    pad = 0.04 * (hi - lo) if hi > lo else 0.5
+    xs = [lo - pad, hi + pad]
+    ax.plot(xs, [binned.intercept + binned.slope * x for x in xs], color=FIT_LINE, linewidth=1.6)
+    ax.set_title(_wrap(f"{x_label}: fitted slope {fmt_num(binned.slope)}"), loc="left")
+    ax.set_xlabel(_wrap(f"{x_label}, residualised"))
+    ax.set_ylabel(_wrap(f"{y_label}, residualised"))
+    _tidy_axes(ax)
+
+
+def first_stage_svg(first_stage: FirstStage, labels: Mapping[str, str]) -> str:
+    """SVG of the binned first-stage scatter, one panel per instrument."""
+    if not first_stage.binned:
+        raise ValueError(f"first stage of '{first_stage.endogenous}' has no binned scatter")
+    panels = len(first_stage.binned)
+    columns = min(panels, 2)
+    rows = -(-panels // columns)
+    with _style():
+        fig = _new_figure(PANEL_SIZE[0] * columns, PANEL_SIZE[1] * rows)
+        axes = fig.subplots(rows, columns, squeeze=False)
+        for position, binned in enumerate(first_stage.binned):
+            ax = axes[position // columns][position % columns]
+            _draw_binned(ax, binned, label(binned.instrument, labels), first_stage.label)
+        for position in range(panels, rows * columns):
+            axes[position // columns][position % columns].set_visible(False)
+        return _to_svg(fig)
+
+
+def _first_stage_alt(first_stage: FirstStage, labels: Mapping[str, str]) -> str:
+    parts = [
+        f"{label(b.instrument, labels)}: {fmt_int(len(b.x))} bins of "
+        f"{fmt_int(sum(b.count))} rows, fitted slope {fmt_num(b.slope)}"
+        for b in first_stage.binned
+    ]
+    return (
+        f"Binned scatter of {first_stage.label} against each instrument, both residualised "
+        f"on the controls, fixed effects and other instruments, with the fitted line. "
+        + "; ".join(parts)
+        + "."
+    )
+
+
+def _ordered(estimates: list[EstimatorResult]) -> list[EstimatorResult]:
+    return sorted(estimates, key=lambda e: ESTIMATOR_ORDER.index(e.estimator))
+
+
+def estimates_svg(results: StudyResults, index: int) -> str:
+    """SVG of every estimator's estimate and interval for endogenous regressor ``index``."""
+    name = results.model.endogenous[index]
+    estimates = _ordered(results.estimates)
+    level = fmt_pct(results.conventions.confidence_level)
+    height = ESTIMATES_BASE_HEIGHT + ESTIMATES_ROW_HEIGHT * len(estimates)
+    with _style():
+        fig = _new_figure(ESTIMATES_WIDTH, height)
+        ax = fig.subplots()
+        positions = list(range(len(estimates)))[::-1]  # first estimator on top
+        for y, result in zip(positions, estimates, strict=True):
+            coef = _coefficient(result, name)
+            colour = IV_COLOURS.get(result.estimator, OLS_COLOUR)
+            ax.plot([coef.ci_lower, coef.ci_upper], [y, y], color=colour, linewidth=2.2)
+            ax.plot(
+                [coef.estimate], [y], marker="o", markersize=6.5, color=colour, linestyle="none"
+            )
+        ax.axvline(0.0, color=ZERO_LINE, linewidth=0.9, linestyle=(0, (4, 3)))
+        ax.set_yticks(positions, [ESTIMATOR_NAMES[e.estimator] for e in estimates])
+        ax.set_ylim(-0.7, len(estimates) - 0.3)
+        outcome = label(results.model.outcome, results.model.labels)
+        effect = f"Effect of {_coefficient(estimates[0], name).label} on {outcome}"
+        ax.set_xlabel(_wrap(effect, 90))
+        ax.set_title(f"Estimates with {level} confidence intervals", loc="left")
+        _tidy_axes(ax)
+        ax.grid(False, axis="y")
+        ax.tick_params(axis="y", length=0)
+        return _to_svg(fig)
+
+
+def _coefficient(result: EstimatorResult, name: str) -> Coefficient:
+    for coef in result.coefficients:
+        if coef.name == name:
+            return coef
+    raise ValueError(f"{result.label} has no coefficient for '{name}'")
+
+
+def _estimates_alt(results: StudyResults, index: int) -> str:
+    name = results.model.endogenous[index]
+    level = fmt_pct(results.conventions.confidence_level)
+    parts = []
+    for result in _ordered(results.estimates):
+        coef = _coefficient(result, name)
+        parts.append(
+            f"{ESTIMATOR_NAMES[result.estimator]} {fmt_num(coef.estimate)} "
+            f"{fmt_ci(coef.ci_lower, coef.ci_upper)}"
+        )
+    coef_label = _coefficient(results.estimates[0], name).label
+    return (
+        f"Estimates of the effect of {coef_label} with {level} confidence intervals: "
+        + "; ".join(parts)
+        + "."
+    )
+
+
+def make_figures(results: StudyResults) -> dict[str, FigureImage]:
+    """Every figure of the appendix, keyed by ``estimates_key`` / ``first_stage_key``."""
+    labels = results.model.labels
+    level = fmt_pct(results.conventions.confidence_level)
+    figures: dict[str, FigureImage] = {}
+    for index, name in enumerate(results.model.endogenous):
+        key = estimates_key(index)
+        figures[key] = FigureImage(
+            key=key,
+            svg=estimates_svg(results, index),
+            alt=_estimates_alt(results, index),
+            caption=(
+                f"{upper_first(label(name, labels))}: point estimates (dots) and {level} "
+                "confidence intervals (lines) by estimator. The dashed line marks zero."
+            ),
+        )
+    for index, first_stage in enumerate(results.first_stages):
+        if not first_stage.binned:
+            continue
+        key = first_stage_key(index)
+        figures[key] = FigureImage(
+            key=key,
+            svg=first_stage_svg(first_stage, labels),
+            alt=_first_stage_alt(first_stage, labels),
+            caption=(
+                f"{upper_first(first_stage.label)} against each instrument, both with the "
+                "controls, fixed effects and other instruments partialled out. Dots are means "
+                "within bins of the instrument (area proportional to the rows in the bin); the "
+                "line is the fitted first stage."
+            ),
+        )
+    return figures
+
+
+def build_figures(results: StudyResults) -> dict[str, FigureImage]:
+    """Alias of ``make_figures`` (the name the bundle writer uses)."""
+    return make_figures(results)
+
+
+def figure_data_uris(figures: Mapping[str, FigureImage]) -> dict[str, str]:
+    """The figures as ``data:`` URIs, keyed like ``figures``."""
+    return {key: figure.data_uri for key, figure in figures.items()}
