@@ -179,6 +179,7 @@ class CrossCheck(_Frozen):
     max_rel_diff_estimate: float
     max_rel_diff_std_error: float
     agrees: bool
+    method: str = Field(default="full design", description="What linearmodels was given.")
 
 
 class Provenance(_Frozen):

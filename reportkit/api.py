@@ -1,0 +1,144 @@
+"""The Python API: load a spec, run it, get the typed results, write the bundle.
+
+The command line is a thin layer over these functions; notebook users call them
+directly::
+
+    from reportkit import api
+    loaded = api.load("study.yaml")          # or api.load_dict({...}, base_dir=".")
+    results = api.analyse(loaded)            # StudyResults, nothing written
+    api.write(loaded, results, "appendix")   # the bundle folder
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from reportkit import __version__
+from reportkit.bundle import check_destination, sha256_bytes, write_bundle
+from reportkit.pipeline import Progress, Timings, package_versions, run_analysis
+from reportkit.results import InputFile, StudyResults
+from reportkit.spec.loaded import LoadedSpec
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    results: StudyResults
+    bundle: Path | None
+    timings: Timings
+
+
+def load(path: str | Path) -> LoadedSpec:
+    from reportkit.spec.loader import load_spec
+
+    return load_spec(path)
+
+
+def load_dict(data: Mapping[str, Any], base_dir: str | Path = ".") -> LoadedSpec:
+    from reportkit.spec.loader import load_spec_dict
+
+    return load_spec_dict(data, base_dir)
+
+
+def generated_on() -> str:
+    """The date stamped on a bundle: SOURCE_DATE_EPOCH when set (reproducible builds)."""
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch and epoch.isdigit():
+        return dt.datetime.fromtimestamp(int(epoch), tz=dt.UTC).date().isoformat()
+    return dt.datetime.now(tz=dt.UTC).date().isoformat()
+
+
+def spec_input(loaded: LoadedSpec) -> list[InputFile]:
+    if loaded.source is None:
+        return []
+    data = loaded.source.read_bytes()
+    return [
+        InputFile(
+            role="spec", name=loaded.source.name, sha256=sha256_bytes(data), size_bytes=len(data)
+        )
+    ]
+
+
+def analyse(
+    loaded: LoadedSpec, *, timings: Timings | None = None, progress: Progress | None = None
+) -> StudyResults:
+    return run_analysis(loaded, timings=timings, progress=progress, extra_inputs=spec_input(loaded))
+
+
+def output_folder(loaded: LoadedSpec, output: str | Path | None) -> Path:
+    if output is not None:
+        return Path(output)
+    return loaded.resolve_path(loaded.spec.run.output)
+
+
+def render_files(
+    loaded: LoadedSpec,
+    results: StudyResults,
+    *,
+    command: str,
+    date: str,
+    timings: Timings | None = None,
+    progress: Progress | None = None,
+    pdf: bool = True,
+) -> dict[str, bytes]:
+    """Every bundle file except the manifest, as bytes."""
+    from reportkit.exports import table_files
+    from reportkit.report.figures import build_figures
+    from reportkit.report.html import RunInfo, render_html
+    from reportkit.spec.loader import dump_resolved_spec
+
+    timings = timings if timings is not None else Timings()
+    files: dict[str, bytes] = {"results.json": results.to_json().encode()}
+    files["spec.resolved.yaml"] = dump_resolved_spec(loaded.spec).encode()
+    for name, text in table_files(results).items():
+        files[f"tables/{name}"] = text.encode()
+    with timings.stage("figures", progress):
+        figures = build_figures(results)
+    for fig in figures.values():
+        files[f"figures/{fig.filename}"] = fig.svg.encode()
+    with timings.stage("HTML", progress):
+        run = RunInfo(reportkit_version=__version__, command=command, generated_on=date)
+        html = render_html(results, run, figures)
+    files["appendix.html"] = html.encode()
+    if pdf:
+        from reportkit.report.pdf import render_pdf
+
+        with timings.stage("PDF", progress):
+            files["appendix.pdf"] = render_pdf(html)
+    return files
+
+
+def run(
+    loaded: LoadedSpec,
+    *,
+    output: str | Path | None = None,
+    overwrite: bool = False,
+    command: str = "python API",
+    progress: Progress | None = None,
+    pdf: bool = True,
+) -> RunOutcome:
+    """The main job: analyse, render and write the bundle atomically."""
+    dest = output_folder(loaded, output)
+    check_destination(dest, overwrite)
+    timings = Timings()
+    results = analyse(loaded, timings=timings, progress=progress)
+    date = generated_on()
+    files = render_files(
+        loaded, results, command=command, date=date, timings=timings, progress=progress, pdf=pdf
+    )
+    manifest = {
+        "bundle_format": 1,
+        "reportkit_version": __version__,
+        "results_schema_version": results.schema_version,
+        "generated_on": date,
+        "command": command,
+        "inputs": [f.model_dump() for f in results.provenance.inputs],
+        "software": {"python": results.provenance.python, **package_versions()},
+    }
+    with timings.stage("writing bundle", progress):
+        write_bundle(dest, files, manifest, overwrite=overwrite)
+    return RunOutcome(results=results, bundle=dest, timings=timings)

@@ -1,0 +1,148 @@
+"""Orchestration only: spec -> data -> estimation -> results.
+
+Each stage is a pure function of the previous stage's typed output; this module puts
+them in order, times them and reports progress through an optional callback.
+"""
+
+from __future__ import annotations
+
+import platform
+import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from importlib import metadata
+
+from reportkit.engine.crosscheck import CrossCheckRow
+from reportkit.results import (
+    CrossCheck,
+    InputFile,
+    ModelDescription,
+    NotApplicable,
+    Provenance,
+    StudyInfo,
+    StudyResults,
+)
+from reportkit.spec.loaded import LoadedSpec
+
+KEY_PACKAGES = (
+    "reportkit",
+    "numpy",
+    "scipy",
+    "pandas",
+    "linearmodels",
+    "pyhdfe",
+    "pydantic",
+    "jinja2",
+    "matplotlib",
+    "weasyprint",
+)
+
+Progress = Callable[[str], None]
+
+
+@dataclass
+class Timings:
+    """Wall time per stage, in seconds, in the order the stages ran."""
+
+    stages: dict[str, float] = field(default_factory=dict)
+
+    @contextmanager
+    def stage(self, name: str, progress: Progress | None = None) -> Iterator[None]:
+        if progress is not None:
+            progress(name)
+        t0 = time.perf_counter()
+        try:
+            yield
+        finally:
+            self.stages[name] = self.stages.get(name, 0.0) + time.perf_counter() - t0
+
+
+def package_versions() -> dict[str, str]:
+    out = {}
+    for name in KEY_PACKAGES:
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = "not installed"
+    return out
+
+
+def run_analysis(
+    loaded: LoadedSpec,
+    *,
+    timings: Timings | None = None,
+    progress: Progress | None = None,
+    extra_inputs: list[InputFile] | None = None,
+) -> StudyResults:
+    """Compute everything the appendix shows; no files are written here."""
+    from threadpoolctl import threadpool_limits
+
+    from reportkit.data.prepare import prepare
+    from reportkit.estimation import estimate
+
+    timings = timings if timings is not None else Timings()
+    spec = loaded.spec.resolved()
+    with threadpool_limits(limits=1):
+        with timings.stage("reading and preparing data", progress):
+            prepared = prepare(loaded)
+        with timings.stage("estimation and tests", progress):
+            est = estimate(
+                prepared.design,
+                covariance=spec.covariance,
+                estimators=list(spec.estimators),
+                confidence_level=spec.inference.confidence_level,
+                labels=dict(spec.model.labels),
+                crosscheck=spec.run.crosscheck,
+            )
+    design = prepared.design
+    model = spec.model
+    crosschecks: list[CrossCheck] | NotApplicable
+    if isinstance(est.crosschecks, NotApplicable):
+        crosschecks = est.crosschecks
+    else:
+        crosschecks = [_crosscheck(row) for row in est.crosschecks]
+    return StudyResults(
+        study=StudyInfo(
+            title=spec.study.title, authors=list(spec.study.authors), summary=spec.study.summary
+        ),
+        model=ModelDescription(
+            outcome=model.outcome,
+            endogenous=list(model.endogenous),
+            instruments=list(model.instruments),
+            controls=list(design.control_names),
+            fixed_effects=list(model.fixed_effects),
+            cluster_by=list(model.cluster_by),
+            weights=model.weights,
+            labels=dict(model.labels),
+            n_instruments=len(model.instruments),
+            n_endogenous=len(model.endogenous),
+            overidentification_degree=len(model.instruments) - len(model.endogenous),
+        ),
+        conventions=est.conventions,
+        sample=prepared.sample,
+        estimates=est.estimates,
+        first_stages=est.first_stages,
+        reduced_form=est.reduced_form,
+        ols_2sls_ratio=est.ratio,
+        diagnostics=est.diagnostics,
+        provenance=Provenance(
+            inputs=sorted(
+                [*prepared.inputs, *(extra_inputs or [])], key=lambda f: (f.role, f.name)
+            ),
+            python=platform.python_version(),
+            packages=package_versions(),
+            seed=spec.run.seed,
+            crosschecks=crosschecks,
+        ),
+    )
+
+
+def _crosscheck(row: CrossCheckRow) -> CrossCheck:
+    return CrossCheck(
+        estimator=row.estimator,
+        max_rel_diff_estimate=row.max_rel_diff_estimate,
+        max_rel_diff_std_error=row.max_rel_diff_std_error,
+        agrees=row.agrees,
+        method=row.method,
+    )
