@@ -100,7 +100,8 @@ class BinnedScatter(_Frozen):
     """Binned means of an endogenous regressor against one instrument.
 
     Both are residualised on the controls, fixed effects and the other instruments
-    (Frisch-Waugh-Lovell), so the fitted line's slope is the first-stage coefficient.
+    (Frisch-Waugh-Lovell) and shifted back to their sample means, so the axes are in the
+    variables' units and the fitted line's slope is the first-stage coefficient.
     Bins are quantiles of the instrument residual (fewer when it takes few values).
     """
 

@@ -151,8 +151,8 @@ def _draw_binned(ax: Axes, binned: BinnedScatter, x_label: str, y_label: str) ->
     xs = [lo - pad, hi + pad]
     ax.plot(xs, [binned.intercept + binned.slope * x for x in xs], color=FIT_LINE, linewidth=1.6)
     ax.set_title(_wrap(f"{x_label}: fitted slope {fmt_num(binned.slope)}"), loc="left")
-    ax.set_xlabel(_wrap(f"{x_label}, residualised"))
-    ax.set_ylabel(_wrap(f"{y_label}, residualised"))
+    ax.set_xlabel(_wrap(f"{x_label} (adjusted)"))
+    ax.set_ylabel(_wrap(f"{y_label} (adjusted)"))
     _tidy_axes(ax)
 
 
@@ -181,8 +181,8 @@ def _first_stage_alt(first_stage: FirstStage, labels: Mapping[str, str]) -> str:
         for b in first_stage.binned
     ]
     return (
-        f"Binned scatter of {first_stage.label} against each instrument, both residualised "
-        f"on the controls, fixed effects and other instruments, with the fitted line. "
+        f"Binned scatter of {first_stage.label} against each instrument, both adjusted for "
+        f"(residualised on, then shifted back to their means) the controls, fixed effects and other instruments, with the fitted line. "
         + "; ".join(parts)
         + "."
     )
@@ -273,9 +273,10 @@ def make_figures(results: StudyResults) -> dict[str, FigureImage]:
             alt=_first_stage_alt(first_stage, labels),
             caption=(
                 f"{upper_first(first_stage.label)} against each instrument, both with the "
-                "controls, fixed effects and other instruments partialled out. Dots are means "
-                "within bins of the instrument (area proportional to the rows in the bin); the "
-                "line is the fitted first stage."
+                "controls, fixed effects and other instruments partialled out and shifted back "
+                "to their sample means (hence 'adjusted'). Dots are means within bins of the "
+                "instrument (area proportional to the rows in the bin); the line is the fitted "
+                "first stage, whose slope is the first-stage coefficient."
             ),
         )
     return figures
