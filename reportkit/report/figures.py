@@ -181,10 +181,9 @@ def _first_stage_alt(first_stage: FirstStage, labels: Mapping[str, str]) -> str:
         for b in first_stage.binned
     ]
     return (
-        f"Binned scatter of {first_stage.label} against each instrument, both adjusted for "
-        f"(residualised on, then shifted back to their means) the controls, fixed effects and other instruments, with the fitted line. "
-        + "; ".join(parts)
-        + "."
+        f"Binned scatter of {first_stage.label} against each instrument, both adjusted "
+        "for the controls, fixed effects and other instruments (residualised, then shifted "
+        "back to their means), with the fitted line. " + "; ".join(parts) + "."
     )
 
 
