@@ -114,6 +114,9 @@ def build_partialler(design: Design, collinear_tol: float = 1e-9) -> Partialler:
             options=options,
         )
         fe_df = int(absorber.degrees)
+        if int(getattr(absorber, "singletons", 0) or 0):
+            # pyhdfe's degrees leave out singleton levels; the data stage must drop them
+            raise ValueError("Design.fixed_effects has singleton groups; drop them first")
 
     c = design.controls
     if design.has_constant:
@@ -128,13 +131,15 @@ def build_partialler(design: Design, collinear_tol: float = 1e-9) -> Partialler:
             cm = np.asarray(absorber.residualize(cm, **kwargs), dtype=float)
         if sqrt_w is not None:
             cm = cm * sqrt_w[:, None]
-        qfull, r, piv = scipy.linalg.qr(cm, mode="economic", pivoting=True)
+        scale = np.linalg.norm(c, axis=0) if w is None else np.sqrt((c * c).T @ w)
+        qfull, r, piv = scipy.linalg.qr(cm, mode="economic", pivoting=True, overwrite_a=cm is not c)
+        del cm
         diag = np.abs(np.diag(r))
-        scale = np.linalg.norm(c * (1.0 if sqrt_w is None else sqrt_w[:, None]), axis=0)
         ref = max(float(scale.max()), 1e-300)
         rank = int(np.sum(diag > collinear_tol * ref))
         keep_cols = np.sort(piv[:rank])
-        q, _ = np.linalg.qr(cm[:, keep_cols])
+        # the first `rank` columns of the pivoted Q span exactly the kept columns
+        q = qfull if rank == qfull.shape[1] else np.ascontiguousarray(qfull[:, :rank])
         offset = 1 if design.has_constant else 0
         kept = tuple(int(j) - offset for j in keep_cols if j >= offset)
         del qfull
