@@ -7,8 +7,10 @@ scenario is invented: an evening-tutoring pilot where a voucher lottery and the 
 to the nearest tutoring centre shift the hours a pupil attends.
 
 Shape: one endogenous regressor, two instruments (over-identified by one), a cluster
-covariance, and one NotApplicable entry (the Sargan test, not reported with a cluster
-covariance).
+covariance, and NotApplicable entries where a cluster covariance rules a statistic out
+(Sargan, Basmann, the CLR test) or two instruments make it degenerate (the C statistics).
+The strength and weak-instrument-robust parts are kept consistent with the first stage and
+the 2SLS estimate (see ``example_strength`` and ``example_weak_iv``).
 """
 
 from __future__ import annotations
@@ -21,23 +23,36 @@ from reportkit.results import (
     BinnedScatter,
     CodingNote,
     Coefficient,
+    ConfidenceSet,
     Conventions,
+    CriticalValue,
+    CriticalValueTable,
     CrossCheck,
     Diagnostics,
+    EffectiveF,
+    EndogenousStrength,
     EstimatorResult,
     FirstStage,
     FirstStageCoefficient,
     InputFile,
+    InstrumentValidity,
+    Interval,
     MissingCount,
     ModelDescription,
     NotApplicable,
     Provenance,
+    PValueCurve,
     ReducedForm,
     SampleAccount,
     SampleStep,
+    Statistic,
+    Strength,
+    StrengthVerdict,
     StudyInfo,
     StudyResults,
     TestResult,
+    TFResult,
+    WeakIVRobust,
 )
 
 Z_95 = 1.959963984540054
@@ -257,7 +272,19 @@ def example_results(**overrides: Any) -> StudyResults:
                 reason="assumes independent, homoskedastic errors; with a cluster "
                 "covariance the Hansen J is the over-identification test"
             ),
+            basmann=NotApplicable(reason="assumes independent, homoskedastic errors"),
             hansen_j=hansen,
+            instrument_validity=[
+                InstrumentValidity(
+                    instrument=name,
+                    label=LABELS.get(name, name),
+                    test=NotApplicable(
+                        reason="with two instruments and one endogenous regressor, dropping "
+                        "one leaves the model just-identified; the C statistic equals Hansen J"
+                    ),
+                )
+                for name in ("voucher_won", "distance_km")
+            ],
             endogeneity=TestResult(
                 name="Durbin-Wu-Hausman",
                 statistic=3.41,
@@ -269,6 +296,8 @@ def example_results(**overrides: Any) -> StudyResults:
                 reference="Durbin (1954); Wu (1973); Hausman (1978)",
             ),
         ),
+        "strength": example_strength(),
+        "weak_iv": example_weak_iv(),
         "provenance": Provenance(
             inputs=[
                 InputFile(
@@ -318,3 +347,221 @@ def example_results(**overrides: Any) -> StudyResults:
     }
     parts.update(overrides)
     return StudyResults(**parts)
+
+
+def example_strength() -> Strength:
+    """Illustrative strength results, consistent with the example's first stage.
+
+    With one endogenous regressor the Cragg-Donald F is the classical first-stage F and the
+    Kleibergen-Paap Wald F the first-stage F with the main covariance, so those are reused.
+    The effective-F critical values are invented; the Stock-Yogo values are those for one
+    endogenous regressor and two instruments (Stock & Yogo 2005, from memory).
+    """
+    cd = Statistic(
+        name="Cragg-Donald minimum-eigenvalue F",
+        value=44.8,
+        covariance="classical (independent, homoskedastic errors)",
+        reference="Cragg & Donald 1993",
+    )
+    return Strength(
+        per_endogenous=[
+            EndogenousStrength(
+                endogenous="tutoring_hours",
+                label=LABELS.get("tutoring_hours", "tutoring_hours"),
+                partial_r2=0.061,
+                shea_partial_r2=0.061,
+                sanderson_windmeijer=NotApplicable(
+                    reason="one endogenous regressor: the conditional F is the first-stage F"
+                ),
+                effective_f=EffectiveF(
+                    value=28.9,
+                    k_eff=1.4,
+                    critical_values=[
+                        CriticalValue(
+                            criterion="2SLS Nagar bias at most 10% of the worst-case benchmark",
+                            estimator="2sls",
+                            kind="nagar_bias",
+                            threshold=0.10,
+                            value=21.4,
+                            exceeded=True,
+                        ),
+                        CriticalValue(
+                            criterion="2SLS Nagar bias at most 20% of the worst-case benchmark",
+                            estimator="2sls",
+                            kind="nagar_bias",
+                            threshold=0.20,
+                            value=13.2,
+                            exceeded=True,
+                        ),
+                    ],
+                    covariance=CLUSTER_COV,
+                ),
+            )
+        ],
+        cragg_donald=cd,
+        kleibergen_paap_f=Statistic(
+            name="Kleibergen-Paap rk Wald F",
+            value=31.4,
+            covariance=CLUSTER_COV,
+            reference="Kleibergen & Paap 2006",
+        ),
+        kleibergen_paap_lm=TestResult(
+            name="Kleibergen-Paap rk LM",
+            statistic=27.3,
+            distribution="chi2",
+            df=[2.0],
+            p_value=math.exp(-27.3 / 2.0),  # chi-squared with 2 df: survival exp(-x/2)
+            covariance=CLUSTER_COV,
+            null="the model is under-identified",
+            reference="Kleibergen & Paap 2006",
+        ),
+        stock_yogo=CriticalValueTable(
+            statistic_name="Cragg-Donald minimum-eigenvalue F",
+            statistic=44.8,
+            rows=[
+                CriticalValue(
+                    criterion="2SLS size at most 10% (nominal 5%)",
+                    estimator="2sls",
+                    kind="size",
+                    threshold=0.10,
+                    value=19.93,
+                    exceeded=True,
+                ),
+                CriticalValue(
+                    criterion="2SLS size at most 15% (nominal 5%)",
+                    estimator="2sls",
+                    kind="size",
+                    threshold=0.15,
+                    value=11.59,
+                    exceeded=True,
+                ),
+                CriticalValue(
+                    criterion="LIML size at most 10% (nominal 5%)",
+                    estimator="liml",
+                    kind="size",
+                    threshold=0.10,
+                    value=8.68,
+                    exceeded=True,
+                ),
+            ],
+            source="Stock & Yogo 2005",
+            note="critical values assume independent, homoskedastic errors",
+        ),
+        verdict=StrengthVerdict(
+            level="strong",
+            summary=(
+                "The effective F (28.9) exceeds its critical value for a 2SLS Nagar bias of at "
+                "most 10% of the worst-case benchmark (21.4)."
+            ),
+        ),
+    )
+
+
+# The illustrative Anderson-Rubin statistic: a floor (the instruments' disagreement) plus a
+# quadratic around the 2SLS estimate, steeper on the left, so the set is asymmetric.
+AR_FLOOR = 0.84
+AR_CENTRE = 1.64
+AR_SCALE = (0.42, 0.47)  # left, right
+CHI2_2_95 = -2.0 * math.log(0.05)  # 95% quantile of chi-squared with 2 df
+
+
+def _ar_statistic(beta0: float) -> float:
+    scale = AR_SCALE[0] if beta0 < AR_CENTRE else AR_SCALE[1]
+    return AR_FLOOR + ((beta0 - AR_CENTRE) / scale) ** 2
+
+
+def _chi2_2_p(x: float) -> float:
+    return math.exp(-x / 2.0)  # survival function of chi-squared with 2 df
+
+
+def example_ar_set() -> Interval:
+    """The illustrative 95% Anderson-Rubin set, where the statistic is below its critical value."""
+    half = math.sqrt(CHI2_2_95 - AR_FLOOR)
+    return Interval(lower=AR_CENTRE - AR_SCALE[0] * half, upper=AR_CENTRE + AR_SCALE[1] * half)
+
+
+def example_weak_iv() -> WeakIVRobust:
+    """Illustrative weak-IV-robust results (invented; consistent with the 2SLS estimate 1.64)."""
+    ar_zero = TestResult(
+        name="Anderson-Rubin test of a zero effect",
+        statistic=_ar_statistic(0.0),
+        distribution="chi2",
+        df=[2.0],
+        p_value=_chi2_2_p(_ar_statistic(0.0)),
+        covariance=CLUSTER_COV,
+        null="the coefficient is zero",
+        reference="Anderson & Rubin 1949",
+    )
+    grid = [round(-1.0 + 0.05 * i, 10) for i in range(101)]
+    tf_critical = 2.31  # invented, of the size the tF table gives for F near 30
+    return WeakIVRobust(
+        endogenous="tutoring_hours",
+        label=LABELS.get("tutoring_hours", "tutoring_hours"),
+        ar_test_zero=ar_zero,
+        anderson_rubin=ConfidenceSet(
+            shape="interval",
+            pieces=[example_ar_set()],
+            level=0.95,
+            method="closed-form inversion of the test",
+            covariance=CLUSTER_COV,
+            reference="Anderson & Rubin 1949",
+        ),
+        clr_test_zero=NotApplicable(
+            reason="the CLR test assumes independent, homoskedastic errors"
+        ),
+        clr=NotApplicable(reason="the CLR test assumes independent, homoskedastic errors"),
+        tf=TFResult(
+            first_stage_f=31.4,
+            critical_value=tf_critical,
+            t_statistic=1.64 / 0.41,
+            p_value_adjusted=0.002,
+            interval=Interval(lower=1.64 - tf_critical * 0.41, upper=1.64 + tf_critical * 0.41),
+        ),
+        curve=PValueCurve(
+            beta0=grid,
+            anderson_rubin=[_chi2_2_p(_ar_statistic(b)) for b in grid],
+            clr=None,
+        ),
+    )
+
+
+def example_weak_iv_with_clr() -> WeakIVRobust:
+    """The weak-IV example as with a classical covariance: CLR test, set and curve present.
+
+    The CLR numbers are invented: p_CLR = 1.2 p_AR^1.15, a curve a little narrower than the
+    Anderson-Rubin one, and the set is where that is above 0.05.
+    """
+    base = example_weak_iv()
+    if base.curve is None:
+        raise ValueError("the weak-IV example has no curve")
+    classical = "classical (independent, homoskedastic errors)"
+    clr_curve = [min(1.0, 1.2 * p**1.15) for p in base.curve.anderson_rubin]
+    ar_cut = -2.0 * math.log((0.05 / 1.2) ** (1 / 1.15))  # AR statistic where p_CLR = 0.05
+    half = math.sqrt(ar_cut - AR_FLOOR)
+    return base.model_copy(
+        update={
+            "clr_test_zero": TestResult(
+                name="Conditional likelihood ratio test of a zero effect",
+                statistic=14.2,
+                distribution="chi2",
+                df=[1.0],
+                p_value=0.0003,
+                covariance=classical,
+                null="the coefficient is zero",
+                reference="Moreira 2003",
+            ),
+            "clr": ConfidenceSet(
+                shape="interval",
+                pieces=[
+                    Interval(
+                        lower=AR_CENTRE - AR_SCALE[0] * half, upper=AR_CENTRE + AR_SCALE[1] * half
+                    )
+                ],
+                level=0.95,
+                method="inversion of the test over a grid refined at the boundary",
+                covariance=classical,
+                reference="Moreira 2003",
+            ),
+            "curve": base.curve.model_copy(update={"clr": clr_curve}),
+        }
+    )

@@ -41,13 +41,16 @@ RUN = RunInfo(
     reportkit_version="0.1.0", command="reportkit run analysis.yaml", generated_on="2024-06-01"
 )
 
-# Section headings and their order are fixed by the project brief for the appendix.
+# Section headings and their order are fixed by the project brief for the appendix (the
+# strength and weak-instrument sections by the brief of the instrument-strength work).
 EXPECTED_TITLES = [
     "At a glance",
     "What was estimated",
     "How the sample was built",
     "Main estimates",
     "First stage and reduced form",
+    "How strong are the instruments",
+    "Inference that stays valid with weak instruments",
     "Specification tests",
     "What the data cannot tell you",
     "Provenance",
@@ -261,10 +264,14 @@ def test_readings_do_not_overclaim() -> None:
 def test_main_overid_test_follows_the_covariance() -> None:
     sargan, hansen = _test(name="Sargan"), _test(name="Hansen J")
     na = rs.NotApplicable(reason="not computed")
-    both = rs.Diagnostics(sargan=sargan, hansen_j=hansen, endogeneity=na)
+    both = rs.Diagnostics(
+        sargan=sargan, basmann=na, hansen_j=hansen, instrument_validity=na, endogeneity=na
+    )
     assert wording.main_overid_test(both, "cluster") is hansen
     assert wording.main_overid_test(both, "classical") is sargan
-    only_sargan = rs.Diagnostics(sargan=sargan, hansen_j=na, endogeneity=na)
+    only_sargan = rs.Diagnostics(
+        sargan=sargan, basmann=na, hansen_j=na, instrument_validity=na, endogeneity=na
+    )
     assert wording.main_overid_test(only_sargan, "robust") is sargan
 
 
@@ -453,7 +460,7 @@ def test_run_info_needs_an_iso_date() -> None:
 
 
 def test_figures_are_deterministic_svg(results: rs.StudyResults, figures: dict) -> None:
-    assert sorted(figures) == ["estimates-1", "first-stage-1"]
+    assert sorted(figures) == ["estimates-1", "first-stage-1", "weak-iv-p-values"]
     again = make_figures(results)
     for key, figure in figures.items():
         assert figure.svg.startswith("<?xml")
@@ -464,7 +471,11 @@ def test_figures_are_deterministic_svg(results: rs.StudyResults, figures: dict) 
 
 
 def test_figures_as_data_uris(figures: dict) -> None:
-    assert {f.filename for f in figures.values()} == {"estimates-1.svg", "first-stage-1.svg"}
+    assert {f.filename for f in figures.values()} == {
+        "estimates-1.svg",
+        "first-stage-1.svg",
+        "weak-iv-p-values.svg",
+    }
     for figure in figures.values():
         uri = figure.data_uri
         assert uri == svg_data_uri(figure.svg)

@@ -6,6 +6,11 @@ Two kinds, one figure per endogenous regressor each:
   (both residualised, Frisch-Waugh-Lovell), with the fitted first-stage line;
 - the estimates: each estimator's point estimate with its confidence interval.
 
+And one figure of weak-instrument-robust inference, when it was computed: the
+Anderson-Rubin (Anderson & Rubin, 1949) and, when present, the conditional likelihood
+ratio (Moreira, 2003) p-values against the hypothesised coefficient, with the test level
+drawn as a line and the confidence sets (the values not rejected) shaded.
+
 Output is SVG text, byte-identical for the same results: the SVG hash salt is fixed,
 the date is left out of the metadata, and figure size, fonts and palette are fixed.
 Figures are built on ``matplotlib.figure.Figure`` directly (no pyplot), so no global
@@ -23,13 +28,27 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from reportkit.report.formatting import fmt_ci, fmt_int, fmt_num, fmt_pct, label, upper_first
+from reportkit.report.formatting import (
+    fmt_ci,
+    fmt_int,
+    fmt_level,
+    fmt_num,
+    fmt_p,
+    fmt_pct,
+    fmt_set,
+    label,
+    upper_first,
+)
 from reportkit.results import (
     BinnedScatter,
     Coefficient,
+    ConfidenceSet,
     EstimatorResult,
     FirstStage,
+    PValueCurve,
+    SetOrNA,
     StudyResults,
+    WeakIVRobust,
 )
 
 if TYPE_CHECKING:
@@ -45,6 +64,11 @@ FIT_LINE = "#b5763a"  # fitted first-stage line (muted amber)
 OLS_COLOUR = "#7d8a93"  # OLS: slate, the non-causal benchmark
 IV_COLOURS = {"2sls": "#2f5f73", "liml": "#5b8c6e", "gmm": "#8a6a9a"}  # blue, sage, heather
 
+AR_COLOUR = IV_COLOURS["2sls"]  # Anderson-Rubin p-value curve
+CLR_COLOUR = FIT_LINE  # conditional likelihood ratio p-value curve
+AR_SET_FILL = "#dbe8ed"  # shaded Anderson-Rubin set (pale blue-teal)
+LEVEL_LINE = "#5f6b73"
+
 ESTIMATOR_NAMES = {"ols": "OLS", "2sls": "2SLS", "liml": "LIML", "gmm": "GMM"}
 ESTIMATOR_ORDER = ("ols", "2sls", "liml", "gmm")
 
@@ -53,6 +77,9 @@ WRAP_WIDTH = 44  # characters per line of a panel title or axis label
 ESTIMATES_WIDTH = 6.4  # inches
 ESTIMATES_ROW_HEIGHT = 0.42  # inches per estimator
 ESTIMATES_BASE_HEIGHT = 1.3  # inches for axis and margins
+CURVE_SIZE = (6.4, 3.3)  # inches, the p-value curve
+
+P_VALUE_CURVE_KEY = "weak-iv-p-values"
 
 _RC: dict[str, Any] = {
     "svg.hashsalt": "reportkit",
@@ -246,8 +273,180 @@ def _estimates_alt(results: StudyResults, index: int) -> str:
     )
 
 
+def _check_curve(curve: PValueCurve) -> None:
+    n = len(curve.beta0)
+    if n < 2:
+        raise ValueError("the p-value curve needs at least two hypothesised values")
+    lengths = [len(curve.anderson_rubin)] + ([] if curve.clr is None else [len(curve.clr)])
+    if any(length != n for length in lengths):
+        raise ValueError(
+            f"the p-value curve has {n} hypothesised values but p-value lists of length "
+            f"{', '.join(str(length) for length in lengths)}"
+        )
+
+
+def _shade_set(ax: Axes, cs: SetOrNA, span: tuple[float, float], **style: Any) -> bool:
+    """Shade the pieces of a confidence set that fall in the plotted range; True if any did."""
+    if not isinstance(cs, ConfidenceSet):
+        return False
+    if cs.shape == "whole_line":
+        bounds = [span]
+    else:
+        bounds = [
+            (span[0] if p.lower is None else p.lower, span[1] if p.upper is None else p.upper)
+            for p in cs.pieces
+        ]
+    drawn = False
+    for lower, upper in bounds:
+        lo, hi = max(lower, span[0]), min(upper, span[1])
+        if lo <= hi:
+            ax.axvspan(lo, hi, **(style if not drawn else {**style, "label": "_nolegend_"}))
+            drawn = True
+    return drawn
+
+
+def p_value_curve_svg(weak_iv: WeakIVRobust, confidence_level: float) -> str:
+    """SVG of the weak-instrument-robust p-values against the hypothesised coefficient."""
+    curve = weak_iv.curve
+    if curve is None:
+        raise ValueError(f"no p-value curve was computed for '{weak_iv.endogenous}'")
+    _check_curve(curve)
+    alpha = round(1.0 - confidence_level, 10)
+    span = (min(curve.beta0), max(curve.beta0))
+    with _style():
+        fig = _new_figure(*CURVE_SIZE)
+        ax = fig.subplots()
+        _shade_set(
+            ax,
+            weak_iv.anderson_rubin,
+            span,
+            color=AR_SET_FILL,
+            linewidth=0,
+            label=f"Anderson-Rubin {fmt_pct(confidence_level)} set",
+        )
+        if curve.clr is not None:
+            _shade_set(
+                ax,
+                weak_iv.clr,
+                span,
+                facecolor="none",
+                edgecolor=CLR_COLOUR,
+                hatch="////",
+                linewidth=0,
+                alpha=0.55,
+                label=f"CLR {fmt_pct(confidence_level)} set",
+            )
+        ax.plot(
+            curve.beta0,
+            curve.anderson_rubin,
+            color=AR_COLOUR,
+            linewidth=1.8,
+            label="Anderson-Rubin p-value",
+        )
+        if curve.clr is not None:
+            ax.plot(
+                curve.beta0,
+                curve.clr,
+                color=CLR_COLOUR,
+                linewidth=1.6,
+                linestyle=(0, (5, 2.5)),
+                label="CLR p-value",
+            )
+        ax.axhline(
+            alpha,
+            color=LEVEL_LINE,
+            linewidth=0.9,
+            linestyle=(0, (1, 2)),
+            label=f"p = {fmt_level(alpha)} (1 \N{MINUS SIGN} {fmt_pct(confidence_level)})",
+        )
+        if span[0] < 0.0 < span[1]:
+            ax.axvline(0.0, color=ZERO_LINE, linewidth=0.9, linestyle=(0, (4, 3)))
+        ax.set_xlim(*span)
+        ax.set_ylim(0.0, 1.0)
+        ax.set_xlabel(_wrap(f"Hypothesised coefficient of {weak_iv.label}", 90))
+        ax.set_ylabel("p-value")
+        ax.set_title("Which coefficient values the data reject", loc="left")
+        _tidy_axes(ax)
+        fig.legend(loc="outside lower center", ncols=2, frameon=False, fontsize=8)
+        return _to_svg(fig)
+
+
+def _p_value_at(beta0: list[float], p_values: list[float], value: float) -> float | None:
+    for b, p in zip(beta0, p_values, strict=True):
+        if b == value:
+            return p
+    return None
+
+
+def _p_value_curve_alt(weak_iv: WeakIVRobust, confidence_level: float) -> str:
+    curve = weak_iv.curve
+    if curve is None:
+        raise ValueError(f"no p-value curve was computed for '{weak_iv.endogenous}'")
+    level = fmt_pct(confidence_level)
+    alpha = round(1.0 - confidence_level, 10)
+    peak = max(range(len(curve.beta0)), key=lambda i: curve.anderson_rubin[i])
+    parts = [
+        f"P-values of weak-instrument-robust tests of each hypothesised coefficient of "
+        f"{weak_iv.label}, at {fmt_int(len(curve.beta0))} values from "
+        f"{fmt_num(min(curve.beta0))} to {fmt_num(max(curve.beta0))}.",
+        f"The Anderson-Rubin p-value is highest ({fmt_p(curve.anderson_rubin[peak])}) at "
+        f"{fmt_num(curve.beta0[peak])}.",
+    ]
+    at_zero = _p_value_at(curve.beta0, curve.anderson_rubin, 0.0)
+    if at_zero is not None:
+        parts.append(f"At zero it is {fmt_p(at_zero)}.")
+    parts.append(
+        f"A dotted line marks p = {fmt_level(alpha)}; the shaded {level} Anderson-Rubin set is "
+        f"{fmt_set(weak_iv.anderson_rubin)}."
+    )
+    if curve.clr is not None:
+        parts.append(f"The CLR p-value is drawn dashed; its {level} set is {fmt_set(weak_iv.clr)}.")
+    return " ".join(parts)
+
+
+def p_value_curve_figure(weak_iv: WeakIVRobust, confidence_level: float) -> FigureImage:
+    """The p-value curve as a ``FigureImage`` with its alt text and caption."""
+    curve = weak_iv.curve
+    if curve is None:
+        raise ValueError(f"no p-value curve was computed for '{weak_iv.endogenous}'")
+    level = fmt_pct(confidence_level)
+    alpha = fmt_level(round(1.0 - confidence_level, 10))
+    has_clr = curve.clr is not None
+    caption = [
+        f"P-value of the Anderson-Rubin test (solid line)"
+        f"{' and of the CLR test (dashed)' if has_clr else ''} of each hypothesised value of "
+        f"the coefficient of {weak_iv.label}."
+    ]
+    ar_set = weak_iv.anderson_rubin
+    if isinstance(ar_set, ConfidenceSet) and ar_set.shape == "empty":
+        caption.append(
+            f"No value's p-value lies above the dotted line at {alpha}: the {level} "
+            "Anderson-Rubin set is empty."
+        )
+    elif isinstance(ar_set, ConfidenceSet):
+        caption.append(
+            f"Values whose p-value lies above the dotted line at {alpha} are not rejected: "
+            f"together they form the {level} Anderson-Rubin set (shaded)."
+        )
+    else:
+        caption.append(
+            f"Values whose p-value lies above the dotted line at {alpha} are not rejected."
+        )
+    if has_clr:
+        caption.append("The hatched band is the CLR set.")
+    if min(curve.beta0) < 0.0 < max(curve.beta0):
+        caption.append("The dashed vertical line marks zero.")
+    return FigureImage(
+        key=P_VALUE_CURVE_KEY,
+        svg=p_value_curve_svg(weak_iv, confidence_level),
+        alt=_p_value_curve_alt(weak_iv, confidence_level),
+        caption=" ".join(caption),
+    )
+
+
 def make_figures(results: StudyResults) -> dict[str, FigureImage]:
-    """Every figure of the appendix, keyed by ``estimates_key`` / ``first_stage_key``."""
+    """Every figure of the appendix, keyed by ``estimates_key`` / ``first_stage_key`` /
+    ``P_VALUE_CURVE_KEY``."""
     labels = results.model.labels
     level = fmt_pct(results.conventions.confidence_level)
     figures: dict[str, FigureImage] = {}
@@ -278,6 +477,10 @@ def make_figures(results: StudyResults) -> dict[str, FigureImage]:
                 "first stage, whose slope is the first-stage coefficient."
             ),
         )
+    weak_iv = results.weak_iv
+    if isinstance(weak_iv, WeakIVRobust) and weak_iv.curve is not None:
+        confidence_level = results.conventions.confidence_level
+        figures[P_VALUE_CURVE_KEY] = p_value_curve_figure(weak_iv, confidence_level)
     return figures
 
 

@@ -16,8 +16,14 @@ Rules
   and "-inf". ``None`` is an error: an optional field must be handled explicitly by
   the template, never printed as a blank.
 - ``fmt_p``: "< 0.001" below 0.001, otherwise three decimals.
+- ``fmt_fixed``: a fixed number of decimals (two by default), for critical values, which
+  their published tables print that way (19.93, 8.68).
+- ``fmt_level``: a test level as its shortest decimal ("0.05", "0.025").
 - Negative numbers use the ASCII hyphen-minus so that copied values paste into
   statistical software unchanged.
+- Confidence sets (``fmt_set``) are written as intervals joined by "U": "[a, b]",
+  "(-inf, a] U [b, +inf)", "[a, +inf)"; a set that is the whole line or empty is said
+  in words, because "(-inf, +inf)" and "{}" are easy to misread.
 """
 
 from __future__ import annotations
@@ -26,13 +32,18 @@ import math
 from collections.abc import Iterable, Mapping, Sequence
 from decimal import ROUND_HALF_UP, Decimal, localcontext
 
-from reportkit.results import NotApplicable, TestResult
+from reportkit.results import ConfidenceSet, Interval, NotApplicable, TestResult
 
 SCIENTIFIC_ABOVE = 1e6
 SCIENTIFIC_BELOW = 1e-4
 P_FLOOR = 0.001
 
-_DISTRIBUTION_NAMES = {"chi2": "chi-squared", "F": "F", "normal": "standard normal"}
+_DISTRIBUTION_NAMES = {
+    "chi2": "chi-squared",
+    "F": "F",
+    "normal": "standard normal",
+    "conditional": "conditional on Q_T (Moreira 2003), q =",
+}
 
 
 def _require_real(x: object, what: str) -> float:
@@ -89,6 +100,23 @@ def fmt_p(p: float) -> str:
     return f"{_round_half_up(value, 3):.3f}"
 
 
+def fmt_fixed(x: float, decimals: int = 2) -> str:
+    """A number with a fixed number of decimals, halves rounded away from zero ("19.93")."""
+    value = _require_real(x, "fmt_fixed")
+    special = _non_finite(value)
+    if special is not None:
+        return special
+    return f"{_round_half_up(value, decimals):,.{decimals}f}"
+
+
+def fmt_level(alpha: float) -> str:
+    """A test level (a probability) as its shortest decimal: 0.05 -> "0.05"."""
+    value = _require_real(alpha, "fmt_level")
+    if not 0.0 < value < 1.0:
+        raise ValueError(f"fmt_level got {value!r}, which is not a test level")
+    return format(Decimal(repr(round(value, 10))).normalize(), "f")
+
+
 def fmt_int(n: int) -> str:
     """A count with thousands separated by commas ("12,345")."""
     if n is None or isinstance(n, bool) or not isinstance(n, int):
@@ -131,6 +159,12 @@ def upper_first(text: str) -> str:
     return text[:1].upper() + text[1:]
 
 
+def sentence(text: str) -> str:
+    """A note as a sentence: first letter capitalised, a full stop added if none ends it."""
+    text = upper_first(text.strip())
+    return text if not text or text.endswith((".", "!", "?")) else f"{text}."
+
+
 def fmt_df(df: Sequence[float]) -> str:
     """Degrees of freedom: "2" or "2, 118" (integers without decimals)."""
     if not df:
@@ -147,6 +181,8 @@ def fmt_distribution(test: TestResult) -> str:
     name = _DISTRIBUTION_NAMES[test.distribution]
     if test.distribution == "normal":
         return name
+    if test.distribution == "conditional":
+        return f"{name} {and_join(fmt_df([d]) for d in test.df)}"
     return f"{name}, {and_join(fmt_df([d]) for d in test.df)} df"
 
 
@@ -165,6 +201,65 @@ def p_phrase(p: float) -> str:
     return text if text.startswith("<") else f"= {text}"
 
 
+WHOLE_LINE_TEXT = "all values (the data do not bound the effect)"
+EMPTY_SET_TEXT = (
+    "empty: no value of the coefficient is consistent with all instruments at this level "
+    "\N{EM DASH} evidence against the model's over-identifying restrictions"
+)
+
+
+def fmt_interval(interval: Interval, digits: int = 3) -> str:
+    """One closed interval, open-ended on a side that is unbounded: "[a, b]", "(-inf, b]"."""
+    lower = "(-inf" if interval.lower is None else f"[{fmt_num(interval.lower, digits)}"
+    upper = "+inf)" if interval.upper is None else f"{fmt_num(interval.upper, digits)}]"
+    return f"{lower}, {upper}"
+
+
+def _check_shape(cs: ConfidenceSet) -> None:
+    """Refuse a set whose pieces contradict its stated shape (an engine error, not data)."""
+    pieces = cs.pieces
+    bounded = [p.lower is not None and p.upper is not None for p in pieces]
+    fits = {
+        "interval": len(pieces) == 1 and bounded[0],
+        "two_rays": len(pieces) == 2
+        and pieces[0].lower is None
+        and pieces[0].upper is not None
+        and pieces[1].lower is not None
+        and pieces[1].upper is None,
+        "ray": len(pieces) == 1 and (pieces[0].lower is None) != (pieces[0].upper is None),
+        "whole_line": not pieces
+        or (len(pieces) == 1 and pieces[0] == Interval(lower=None, upper=None)),
+        "empty": not pieces,
+        "union": len(pieces) >= 1,
+    }[cs.shape]
+    if not fits:
+        shown = " U ".join(fmt_interval(p) for p in pieces) or "no pieces"
+        raise ValueError(f"a confidence set of shape '{cs.shape}' cannot have the pieces {shown}")
+
+
+def fmt_set(cs: ConfidenceSet | NotApplicable, digits: int = 3) -> str:
+    """A confidence set in words or intervals (see the module docstring), or "n/a: <reason>"."""
+    if isinstance(cs, NotApplicable):
+        return f"n/a: {cs.reason}"
+    if not isinstance(cs, ConfidenceSet):
+        raise TypeError(
+            f"fmt_set expects a ConfidenceSet or NotApplicable, got {type(cs).__name__}"
+        )
+    _check_shape(cs)
+    if cs.shape == "whole_line":
+        return WHOLE_LINE_TEXT
+    if cs.shape == "empty":
+        return EMPTY_SET_TEXT
+    return " U ".join(fmt_interval(piece, digits) for piece in cs.pieces)
+
+
+def yes_no(flag: bool) -> str:
+    """A boolean as "yes" or "no" (never "True"/"False")."""
+    if not isinstance(flag, bool):
+        raise TypeError(f"yes_no expects a bool, got {type(flag).__name__}")
+    return "yes" if flag else "no"
+
+
 def is_na(result: object) -> bool:
     """Jinja test: is this entry a NotApplicable (shown with its reason)?"""
     return isinstance(result, NotApplicable)
@@ -174,6 +269,8 @@ FILTERS = {
     "fmt_num": fmt_num,
     "fmt_p": fmt_p,
     "fmt_int": fmt_int,
+    "fmt_fixed": fmt_fixed,
+    "fmt_level": fmt_level,
     "fmt_ci": fmt_ci,
     "fmt_pct": fmt_pct,
     "fmt_df": fmt_df,
@@ -183,6 +280,10 @@ FILTERS = {
     "label": label,
     "and_join": and_join,
     "upper_first": upper_first,
+    "sentence": sentence,
+    "fmt_interval": fmt_interval,
+    "fmt_set": fmt_set,
+    "yes_no": yes_no,
 }
 
 TESTS = {"not_applicable": is_na}

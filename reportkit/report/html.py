@@ -22,8 +22,27 @@ from typing import Any, Protocol
 import jinja2
 
 from reportkit.report import formatting, wording
-from reportkit.report.figures import ESTIMATOR_ORDER, estimates_key, first_stage_key
-from reportkit.results import Coefficient, EstimatorResult, FirstStage, StudyResults, TestOrNA
+from reportkit.report.figures import (
+    ESTIMATOR_ORDER,
+    P_VALUE_CURVE_KEY,
+    estimates_key,
+    first_stage_key,
+)
+from reportkit.report.strength_sections import (
+    glance_interval,
+    strength_blocks,
+    system_strength_rows,
+    two_sls_coefficient,
+    weak_iv_readings,
+)
+from reportkit.results import (
+    Coefficient,
+    EstimatorResult,
+    FirstStage,
+    StudyResults,
+    TestOrNA,
+    WeakIVRobust,
+)
 
 ENTRY_TEMPLATE = "appendix.html.j2"
 
@@ -79,6 +98,16 @@ SECTIONS: tuple[Section, ...] = (
     Section("sample", "How the sample was built", "sections/sample.html.j2"),
     Section("main-estimates", "Main estimates", "sections/main_estimates.html.j2"),
     Section("first-stage", "First stage and reduced form", "sections/first_stage.html.j2"),
+    Section(
+        "instrument-strength",
+        "How strong are the instruments",
+        "sections/instrument_strength.html.j2",
+    ),
+    Section(
+        "weak-iv-robust",
+        "Inference that stays valid with weak instruments",
+        "sections/weak_iv_robust.html.j2",
+    ),
     Section("specification-tests", "Specification tests", "sections/specification_tests.html.j2"),
     Section("cannot-tell", "What the data cannot tell you", "sections/cannot_tell.html.j2"),
     Section("provenance", "Provenance", "sections/provenance.html.j2"),
@@ -204,6 +233,12 @@ def specification_test_entries(results: StudyResults, alpha: float) -> list[Chec
             wording.OVERID_CAUTION,
         ),
         CheckEntry(
+            "Basmann",
+            diagnostics.basmann,
+            wording.overid_reading(diagnostics.basmann, alpha),
+            wording.OVERID_CAUTION,
+        ),
+        CheckEntry(
             "Hansen J",
             diagnostics.hansen_j,
             wording.overid_reading(diagnostics.hansen_j, alpha),
@@ -222,6 +257,8 @@ def expected_figures(results: StudyResults) -> list[str]:
     """Keys of the figures the appendix places (see ``figures.make_figures``)."""
     keys = [estimates_key(i) for i in range(len(results.model.endogenous))]
     keys += [first_stage_key(i) for i, fs in enumerate(results.first_stages) if fs.binned]
+    if isinstance(results.weak_iv, WeakIVRobust) and results.weak_iv.curve is not None:
+        keys.append(P_VALUE_CURVE_KEY)
     return keys
 
 
@@ -238,6 +275,13 @@ def build_context(
     alpha = wording.significance_level(results.conventions)
     model = results.model
     overid = wording.main_overid_test(results.diagnostics, results.conventions.covariance)
+    confidence_level = results.conventions.confidence_level
+    weak_iv = results.weak_iv
+    conventional = (
+        two_sls_coefficient(results, weak_iv.endogenous)
+        if isinstance(weak_iv, WeakIVRobust)
+        else None
+    )
     return {
         "results": results,
         "run": run,
@@ -267,6 +311,38 @@ def build_context(
         "estimate_figures": [
             figures[estimates_key(i)] for i in range(len(results.model.endogenous))
         ],
+        "strength": results.strength,
+        "strength_blocks": strength_blocks(results, alpha),
+        "system_rows": system_strength_rows(
+            results.strength, len(results.strength.per_endogenous), alpha
+        ),
+        "verdict_label": wording.VERDICT_LABELS[results.strength.verdict.level],
+        "verdict_advice": wording.VERDICT_ADVICE[results.strength.verdict.level],
+        "relevance_not_exclusion": wording.RELEVANCE_NOT_EXCLUSION,
+        "underidentification_note": wording.UNDERIDENTIFICATION_NOTE,
+        "weak_iv": weak_iv,
+        "weak_iv_readings": (
+            weak_iv_readings(weak_iv, confidence_level)
+            if isinstance(weak_iv, WeakIVRobust)
+            else None
+        ),
+        "weak_iv_conventional": conventional,
+        # TFResult carries no covariance label; it is computed from the main 2SLS fit.
+        "tf_covariance": (
+            conventional.covariance
+            if conventional is not None
+            else results.conventions.covariance_description
+        ),
+        "weak_iv_figure": (
+            figures[P_VALUE_CURVE_KEY] if P_VALUE_CURVE_KEY in expected_figures(results) else None
+        ),
+        "overidentified": results.model.overidentification_degree > 0,
+        "ar_overid_note": wording.AR_OVERID_NOTE,
+        "tf_no_interval": wording.TF_NO_INTERVAL,
+        "normal_critical": wording.normal_critical_value(confidence_level),
+        "glance_interval": glance_interval(results),
+        "instrument_validity": results.diagnostics.instrument_validity,
+        "c_test_caution": wording.C_TEST_CAUTION,
     }
 
 

@@ -8,7 +8,9 @@ never described as showing that an assumption holds.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+import math
+from collections.abc import Mapping, Sequence
+from statistics import NormalDist
 
 from reportkit.report.formatting import (
     and_join,
@@ -20,12 +22,16 @@ from reportkit.report.formatting import (
     upper_first,
 )
 from reportkit.results import (
+    ConfidenceSet,
     Conventions,
+    CriticalValue,
+    CriticalValueTable,
     Diagnostics,
     ModelDescription,
     NotApplicable,
     TestOrNA,
     TestResult,
+    TFResult,
 )
 
 OVERID_CAUTION = (
@@ -152,3 +158,192 @@ def main_overid_test(diagnostics: Diagnostics, covariance: str) -> TestOrNA:
     if isinstance(preferred, NotApplicable) and isinstance(other, TestResult):
         return other
     return preferred
+
+
+# --- instrument strength ---------------------------------------------------------------
+
+RELEVANCE_NOT_EXCLUSION = (
+    "A strong first stage shows relevance; it says nothing about the exclusion restriction."
+)
+PARTIAL_R2_CRITERION = (
+    "no threshold: the share of the regressor's variation left after the controls that the "
+    "instruments explain"
+)
+UNDERIDENTIFICATION_NOTE = (
+    "Rejecting under-identification shows that the instruments move the endogenous regressors "
+    "at all; it does not show that they are strong."
+)
+VERDICT_LABELS = {
+    "strong": "Strong instruments",
+    "moderate": "Instruments of moderate strength",
+    "weak": "Weak instruments",
+}
+VERDICT_ADVICE = {
+    "strong": "",
+    "moderate": (
+        "Conventional 2SLS intervals may be somewhat too narrow; compare them with the "
+        "inference that stays valid with weak instruments."
+    ),
+    "weak": (
+        "Conventional 2SLS standard errors and intervals can mislead; rely on the inference "
+        "that stays valid with weak instruments."
+    ),
+}
+
+
+def shea_criterion(n_endogenous: int) -> str:
+    """What the Shea partial R-squared is compared with (Shea, 1997)."""
+    if n_endogenous == 1:
+        return "the partial R-squared: with one endogenous regressor the two are equal"
+    return (
+        "the partial R-squared: a Shea value far below it means the instruments explain this "
+        "regressor mostly through what they share with the other endogenous regressors"
+    )
+
+
+def test_criterion(result: TestResult) -> str:
+    """The reference a test is read against: its distribution and null, in words."""
+    return f"p-value, {fmt_distribution(result)}; null: {result.null}"
+
+
+def test_outcome(result: TestOrNA, alpha: float) -> str:
+    """A test's p-value and whether it rejects at the report's level."""
+    if isinstance(result, NotApplicable):
+        return f"n/a: {result.reason}"
+    verdict = "rejected" if result.p_value < alpha else "not rejected"
+    return f"p {p_phrase(result.p_value)}: {verdict} at the {_level_text(alpha)} level"
+
+
+def exceeded_count(rows: Sequence[CriticalValue]) -> str:
+    """How many of its critical values a statistic exceeds ("exceeds 2 of 2")."""
+    if not rows:
+        return "no critical values computed"
+    count = sum(row.exceeded for row in rows)
+    noun = "critical value" if len(rows) == 1 else "critical values"
+    if count == 0:
+        return f"exceeds none of its {len(rows)} {noun}"
+    return f"exceeds {count} of {len(rows)} {noun}"
+
+
+def effective_f_criterion(k_eff: float) -> str:
+    """What the effective F is read against (Montiel Olea & Pflueger, 2013)."""
+    return (
+        "critical values computed for these data (effective degrees of freedom "
+        f"{fmt_num(k_eff)}), allowing for the covariance in use:"
+    )
+
+
+def cragg_donald_criterion(stock_yogo: CriticalValueTable | NotApplicable) -> str:
+    """What the Cragg-Donald F is read against: Stock-Yogo, or why there is nothing."""
+    if isinstance(stock_yogo, NotApplicable):
+        return f"no tabulated critical values: {stock_yogo.reason}"
+    return (
+        f"{stock_yogo.source} critical values (table below), which assume independent, "
+        "homoskedastic errors"
+    )
+
+
+def kleibergen_paap_f_criterion(n_endogenous: int) -> str:
+    """What the Kleibergen-Paap Wald F is read against: no table holds for it."""
+    text = (
+        "no tabulated critical values allow for this covariance; the Stock-Yogo values are "
+        "at most a rough guide"
+    )
+    if n_endogenous == 1:
+        text += "; with one endogenous regressor, read the effective F instead"
+    return text
+
+
+# --- weak-instrument-robust inference --------------------------------------------------
+
+C_TEST_CAUTION = (
+    "Each C statistic tests one instrument while assuming that all the other instruments are "
+    "valid; if they are not, the test says nothing about this one. Like any "
+    "over-identification test, it cannot detect a violation that all instruments share."
+)
+AR_OVERID_NOTE = (
+    "With more instruments than endogenous regressors, the Anderson-Rubin test also rejects "
+    "when the instruments disagree with each other, so its set can be narrow, or empty, for "
+    "that reason rather than because the effect is precisely estimated."
+)
+
+_SET_READINGS = {
+    "interval": (
+        "A bounded interval: the values of the coefficient that this test does not reject at "
+        "the {alpha} level."
+    ),
+    "two_rays": (
+        "Two rays: the data rule out the values in the gap between them but bound the effect "
+        "in neither direction. This shape arises when the instruments are weak."
+    ),
+    "ray": (
+        "A half-line: the data bound the effect on one side only. This shape arises when the "
+        "instruments are weak."
+    ),
+    "whole_line": (
+        "No value of the coefficient is rejected at the {alpha} level: the instruments are too "
+        "weak for the data to say anything about the size of the effect."
+    ),
+    "empty": (
+        "Every value of the coefficient is rejected at the {alpha} level. This does not mean "
+        "the effect is known precisely: the instruments point to different answers, the "
+        "evidence an over-identification test looks for."
+    ),
+    "union": (
+        "Several separate pieces: the values not rejected at the {alpha} level do not form "
+        "one range. This arises with weak instruments, or instruments that point to different "
+        "answers."
+    ),
+}
+
+
+def set_reading(cs: ConfidenceSet | NotApplicable) -> str:
+    """A plain reading of a confidence set's shape that does not overclaim."""
+    if isinstance(cs, NotApplicable):
+        return _not_reported(cs)
+    alpha = round(1.0 - cs.level, 10)
+    return _SET_READINGS[cs.shape].format(alpha=_level_text(alpha))
+
+
+def zero_test_reading(result: TestOrNA, alpha: float) -> str:
+    """Reading of a weak-instrument-robust test that the effect is zero."""
+    if isinstance(result, NotApplicable):
+        return _not_reported(result)
+    level = _level_text(alpha)
+    if result.p_value < alpha:
+        return (
+            f"A zero effect is rejected at the {level} level, and this conclusion does not "
+            "depend on the instruments being strong (it does depend on their being valid)."
+        )
+    return (
+        f"A zero effect is not rejected at the {level} level. This is not evidence that the "
+        "effect is zero: weak instruments leave such tests with little power."
+    )
+
+
+def normal_critical_value(confidence_level: float) -> float:
+    """The two-sided standard-normal critical value of a conventional t-test (1.96 at 95%)."""
+    return NormalDist().inv_cdf(0.5 + confidence_level / 2.0)
+
+
+def tf_reading(tf: TFResult, confidence_level: float) -> str:
+    """Reading of the tF test of a zero effect (Lee, McCrary, Moreira & Porter, 2022)."""
+    level = _level_text(round(1.0 - confidence_level, 10))
+    if not math.isfinite(tf.critical_value):
+        return (
+            f"With a first-stage F of {fmt_num(tf.first_stage_f)}, no finite critical value "
+            f"applies: the tF test cannot reject any value at the {level} level."
+        )
+    usual = fmt_num(normal_critical_value(confidence_level))
+    verdict = "rejects" if abs(tf.t_statistic) > tf.critical_value else "does not reject"
+    return (
+        f"With a first-stage F of {fmt_num(tf.first_stage_f)}, the t-ratio must exceed "
+        f"{fmt_num(tf.critical_value)} in absolute value instead of the usual {usual}; at "
+        f"{fmt_num(tf.t_statistic)} it {verdict} a zero effect at the {level} level."
+    )
+
+
+TF_NO_INTERVAL = (
+    "none: the first-stage F is below the smallest value the tF adjustment covers, so no "
+    "finite interval applies"
+)
