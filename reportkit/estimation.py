@@ -16,6 +16,9 @@ from scipy import stats
 
 from reportkit.checks.endogeneity import durbin_wu_hausman
 from reportkit.checks.overid import hansen_j, sargan
+from reportkit.checks.overid_extra import basmann, c_statistics
+from reportkit.checks.strength import instrument_strength
+from reportkit.checks.weak_iv import weak_iv_inference
 from reportkit.engine.covariance import CovarianceSpec
 from reportkit.engine.crosscheck import CrossCheckRow, run_crosscheck, should_run
 from reportkit.engine.design import Design
@@ -32,7 +35,9 @@ from reportkit.results import (
     FirstStageCoefficient,
     NotApplicable,
     ReducedForm,
+    Strength,
     TestResult,
+    WeakIVRobust,
 )
 
 REFERENCE_DISTRIBUTION = (
@@ -51,6 +56,8 @@ class EstimationOutput:
     conventions: Conventions
     crosschecks: list[CrossCheckRow] | NotApplicable
     fits: dict[str, EstimateArrays]
+    strength: Strength
+    weak_iv: WeakIVRobust | NotApplicable
 
 
 def _label(name: str, labels: dict[str, str]) -> str:
@@ -153,19 +160,32 @@ def estimate(
         coefficients=_instrument_coefs(rf_fit, design.instrument_names, labels),
         joint_test=_f_test(rf_fit.wald, m.q, rf_fit.df_denominator, cov_label, "main covariance"),
     )
-    tsls_params = (
-        fits["2sls"].params if "2sls" in fits else ESTIMATOR_FUNCTIONS["2sls"](m, cov).params
-    )
+    tsls_fit = fits["2sls"] if "2sls" in fits else ESTIMATOR_FUNCTIONS["2sls"](m, cov)
+    tsls_params = tsls_fit.params
     ratio: list[float | None] = []
     for j in range(m.p):
         if "ols" in fits and "2sls" in fits and fits["ols"].params[j] != 0:
             ratio.append(float(fits["2sls"].params[j] / fits["ols"].params[j]))
         else:
             ratio.append(None)
+    gmm_fit = fits["gmm"] if "gmm" in fits else ESTIMATOR_FUNCTIONS["gmm"](m, cov)
     diagnostics = Diagnostics(
         sargan=sargan(m, tsls_params),
-        hansen_j=hansen_j(m, fits.get("gmm"), covariance, cov_label),
+        basmann=basmann(m, tsls_params),
+        hansen_j=hansen_j(m, gmm_fit, covariance, cov_label),
+        instrument_validity=c_statistics(m, cov, cov_label, design.instrument_names, labels),
         endogeneity=durbin_wu_hausman(m, cov, cov_label),
+    )
+    strength = instrument_strength(m, cov, cov_label, design.endog_names, labels)
+    weak_iv = weak_iv_inference(
+        m,
+        cov,
+        cov_label,
+        design.endog_names,
+        labels,
+        confidence_level,
+        tsls_fit,
+        first_stages[0].f_main.statistic,
     )
     conventions = Conventions(
         covariance=covariance,
@@ -193,6 +213,8 @@ def estimate(
         conventions=conventions,
         crosschecks=checks,
         fits=fits,
+        strength=strength,
+        weak_iv=weak_iv,
     )
 
 

@@ -126,6 +126,8 @@ def run_analysis(
         reduced_form=est.reduced_form,
         ols_2sls_ratio=est.ratio,
         diagnostics=est.diagnostics,
+        strength=est.strength,
+        weak_iv=est.weak_iv,
         provenance=Provenance(
             inputs=sorted(
                 [*prepared.inputs, *(extra_inputs or [])], key=lambda f: (f.role, f.name)

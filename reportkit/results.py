@@ -14,7 +14,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 
-SCHEMA_VERSION = "1.0.0"
+SCHEMA_VERSION = "1.1.0"
 
 
 class _Frozen(BaseModel):
@@ -34,7 +34,7 @@ class TestResult(_Frozen):
     kind: Literal["test"] = "test"
     name: str
     statistic: float
-    distribution: Literal["chi2", "F", "normal"]
+    distribution: Literal["chi2", "F", "normal", "conditional"]
     df: list[float] = Field(description="Degrees of freedom (one for chi2, two for F).")
     p_value: float
     covariance: str = Field(description="Covariance the statistic was computed with.")
@@ -201,10 +201,166 @@ class Conventions(_Frozen):
     confidence_level: float
 
 
+class InstrumentValidity(_Frozen):
+    """Difference-in-J (C) test of one instrument's validity, given the others."""
+
+    instrument: str
+    label: str
+    test: TestOrNA
+
+
 class Diagnostics(_Frozen):
     sargan: TestOrNA
+    basmann: TestOrNA
     hansen_j: TestOrNA
+    instrument_validity: list[InstrumentValidity] | NotApplicable = Field(
+        description="One C statistic per instrument (Eichenbaum, Hansen & Singleton 1988)."
+    )
     endogeneity: TestOrNA
+
+
+# --- instrument strength -------------------------------------------------------------
+
+
+class Statistic(_Frozen):
+    """A statistic read against critical values rather than a p-value (e.g. Cragg-Donald)."""
+
+    kind: Literal["statistic"] = "statistic"
+    name: str
+    value: float
+    covariance: str
+    reference: str
+    note: str = ""
+
+
+StatOrNA = Statistic | NotApplicable
+
+
+class CriticalValue(_Frozen):
+    """One published or computed critical value and whether the statistic exceeds it."""
+
+    criterion: str = Field(description="In words, e.g. '2SLS size distortion at most 10%'.")
+    estimator: Literal["2sls", "liml", "any"]
+    kind: Literal["relative_bias", "size", "nagar_bias"]
+    threshold: float = Field(description="e.g. 0.10 for 10%")
+    value: float
+    exceeded: bool
+
+
+class CriticalValueTable(_Frozen):
+    """Critical values for a strength statistic, with their source and assumptions."""
+
+    kind: Literal["critical_values"] = "critical_values"
+    statistic_name: str
+    statistic: float
+    rows: list[CriticalValue]
+    source: str
+    note: str
+
+
+class EffectiveF(_Frozen):
+    """Montiel Olea & Pflueger (2013) effective F with critical values computed for the data."""
+
+    kind: Literal["effective_f"] = "effective_f"
+    value: float
+    k_eff: float = Field(description="Effective degrees of freedom of the simplified procedure.")
+    critical_values: list[CriticalValue]
+    covariance: str
+    reference: str = "Montiel Olea & Pflueger 2013"
+
+
+class EndogenousStrength(_Frozen):
+    endogenous: str
+    label: str
+    partial_r2: float
+    shea_partial_r2: float
+    sanderson_windmeijer: TestOrNA = Field(
+        description="Conditional F (Sanderson & Windmeijer 2016); n/a with one endogenous "
+        "regressor."
+    )
+    effective_f: EffectiveF | NotApplicable
+
+
+class StrengthVerdict(_Frozen):
+    level: Literal["strong", "moderate", "weak"]
+    summary: str = Field(description="One sentence naming the statistic and criterion used.")
+
+
+class Strength(_Frozen):
+    per_endogenous: list[EndogenousStrength]
+    cragg_donald: Statistic
+    kleibergen_paap_f: StatOrNA
+    kleibergen_paap_lm: TestOrNA
+    stock_yogo: CriticalValueTable | NotApplicable
+    verdict: StrengthVerdict
+
+
+# --- weak-instrument-robust inference ------------------------------------------------
+
+
+class Interval(_Frozen):
+    """A closed interval; None means unbounded on that side."""
+
+    lower: float | None
+    upper: float | None
+
+
+class ConfidenceSet(_Frozen):
+    """A confidence set for one coefficient: a union of disjoint intervals, sorted.
+
+    shape: 'interval' (one bounded interval), 'two_rays' (everything outside a bounded
+    gap), 'ray' (half-line), 'whole_line', 'empty', or 'union' (anything else).
+    """
+
+    kind: Literal["confidence_set"] = "confidence_set"
+    shape: Literal["interval", "two_rays", "ray", "whole_line", "empty", "union"]
+    pieces: list[Interval]
+    level: float
+    method: str
+    covariance: str
+    reference: str
+
+
+SetOrNA = ConfidenceSet | NotApplicable
+
+
+class TFResult(_Frozen):
+    """Lee, McCrary, Moreira & Porter (2022) tF: 2SLS t-ratio with an F-adjusted critical value."""
+
+    kind: Literal["tf"] = "tf"
+    first_stage_f: float
+    critical_value: float
+    t_statistic: float
+    p_value_adjusted: float | None = Field(
+        default=None, description="Smallest level at which the tF test rejects beta = 0."
+    )
+    interval: Interval | None = Field(
+        description="The tF confidence interval; None when F is below the smallest tabulated F."
+    )
+    note: str = ""
+    reference: str = "Lee, McCrary, Moreira & Porter 2022"
+
+
+class PValueCurve(_Frozen):
+    """Weak-IV-robust p-values over a range of hypothesised coefficient values (figure data)."""
+
+    beta0: list[float]
+    anderson_rubin: list[float]
+    clr: list[float] | None
+
+
+class WeakIVRobust(_Frozen):
+    """Inference on the coefficient of the single endogenous regressor that stays valid
+    however weak the instruments are."""
+
+    endogenous: str
+    label: str
+    ar_test_zero: TestOrNA
+    anderson_rubin: SetOrNA
+    clr_test_zero: TestOrNA
+    clr: SetOrNA
+    tf: TFResult | NotApplicable
+    curve: PValueCurve | None
 
 
 class ModelDescription(_Frozen):
@@ -242,6 +398,8 @@ class StudyResults(_Frozen):
         description="2SLS / OLS per endogenous regressor (None when OLS is zero or absent)."
     )
     diagnostics: Diagnostics
+    strength: Strength
+    weak_iv: WeakIVRobust | NotApplicable
     provenance: Provenance
 
     def to_json(self) -> str:
