@@ -691,6 +691,7 @@ class SuiteResult:
     top: list[tuple[str, int, float, float]]
     load_before: tuple[float, float, float]
     load_after: tuple[float, float, float]
+    cold: tuple[float, float]  # first main fit and first estimate() at this size, wall s
 
     def median(self, part: str, cpu: bool = False) -> float:
         values = (self.cpu if cpu else self.wall)[part]
@@ -712,6 +713,15 @@ def bench_suite(args: argparse.Namespace) -> SuiteResult:
     handling = "skipped"
     coef_diff = se_diff = float("nan")
     load_before = os.getloadavg()
+    # the first calls at this size are slower (fresh memory pages for the n-row arrays):
+    # timed and shown apart, kept out of the rounds so that every round is alike
+    cold_main = _timed(partial(main_fit, design))[0]
+    cold_whole = _timed(partial(run_estimate, design))[0]
+    print(
+        f"  first calls at this size, not in the rounds: main fit {cold_main:.2f} s, "
+        f"whole estimate() {cold_whole:.2f} s",
+        flush=True,
+    )
     for r in range(max(args.repeats, 1)):
         t_round = time.perf_counter()
         secs, cpus, out = _timed(partial(main_fit, design))
@@ -765,6 +775,7 @@ def bench_suite(args: argparse.Namespace) -> SuiteResult:
         top=top_functions(table, TOP_FUNCTIONS),
         load_before=load_before,
         load_after=os.getloadavg(),
+        cold=(cold_main, cold_whole),
     )
 
 
@@ -1057,6 +1068,7 @@ def main_suite(args: argparse.Namespace) -> dict[str, object]:
         "top_functions": res.top,
         "load_before": res.load_before,
         "load_after": res.load_after,
+        "first_calls_wall_seconds": {"main fit": res.cold[0], "whole estimate()": res.cold[1]},
     }
 
 
