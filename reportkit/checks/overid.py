@@ -34,16 +34,21 @@ def sargan(m: Moments, tsls_params) -> TestOrNA:  # type: ignore[no-untyped-def]
     e = m.y - m.x @ tsls_params
     ze = m.z.T @ e
     stat = m.n * float(ze @ m.zz_inv @ ze) / float(e @ e)
+    return classical_overid_result(m, "Sargan", stat, "Sargan 1958")
+
+
+def classical_overid_result(m: Moments, name: str, stat: float, reference: str) -> TestResult:
+    """A chi2(q - p) over-identification test under the classical (iid) assumption."""
     df = m.q - m.p
     return TestResult(
-        name="Sargan",
+        name=name,
         statistic=stat,
         distribution="chi2",
         df=[float(df)],
         p_value=float(stats.chi2.sf(stat, df)),
         covariance="classical",
         null=OVERID_NULL,
-        reference="Sargan 1958",
+        reference=reference,
     )
 
 

@@ -38,7 +38,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from reportkit.checks.overid import OVERID_NULL, sargan
+from reportkit.checks.overid import classical_overid_result, sargan
 from reportkit.engine.covariance import CovarianceSpec
 from reportkit.engine.moments import Moments
 from reportkit.results import InstrumentValidity, NotApplicable, TestOrNA, TestResult
@@ -57,17 +57,7 @@ def basmann(m: Moments, tsls_params: np.ndarray) -> TestOrNA:
     n = m.n
     k_z = m.k_exog + m.q
     stat = s.statistic * (n - k_z) / (n - s.statistic)
-    df = m.q - m.p
-    return TestResult(
-        name="Basmann",
-        statistic=stat,
-        distribution="chi2",
-        df=[float(df)],
-        p_value=float(stats.chi2.sf(stat, df)),
-        covariance="classical",
-        null=OVERID_NULL,
-        reference="Basmann 1960",
-    )
+    return classical_overid_result(m, "Basmann", stat, "Basmann 1960")
 
 
 def _min_objective(zx: np.ndarray, zy: np.ndarray, w: np.ndarray) -> float:

@@ -9,24 +9,9 @@ only the spec (a variable in two roles, too few instruments) live here.
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import Annotated, Literal, get_args
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
-
-ESTIMATORS: tuple[str, ...] = ("ols", "2sls", "liml", "gmm")
-COVARIANCES: tuple[str, ...] = ("classical", "robust", "cluster")
-COMPARISONS: tuple[str, ...] = (
-    "equal_to",
-    "not_equal_to",
-    "less_than",
-    "at_most",
-    "greater_than",
-    "at_least",
-    "one_of",
-    "not_one_of",
-    "is_missing",
-    "is_present",
-)
 
 Estimator = Literal["ols", "2sls", "liml", "gmm"]
 Covariance = Literal["classical", "robust", "cluster"]
@@ -42,6 +27,9 @@ Comparison = Literal[
     "is_missing",
     "is_present",
 ]
+ESTIMATORS: tuple[str, ...] = get_args(Estimator)
+COVARIANCES: tuple[str, ...] = get_args(Covariance)
+COMPARISONS: tuple[str, ...] = get_args(Comparison)
 Scalar = str | int | float | bool
 ColumnName = Annotated[str, Field(min_length=1)]
 
