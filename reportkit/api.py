@@ -6,7 +6,8 @@ directly::
     from reportkit import api
     loaded = api.load("study.yaml")          # or api.load_dict({...}, base_dir=".")
     results = api.analyse(loaded)            # StudyResults, nothing written
-    api.write(loaded, results, "appendix")   # the bundle folder
+    outcome = api.run(loaded, output="appendix")  # the bundle folder
+    report = api.verify("appendix")          # re-run the bundle and compare
 """
 
 from __future__ import annotations
@@ -16,13 +17,17 @@ import os
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from reportkit import __version__
-from reportkit.bundle import check_destination, sha256_bytes, write_bundle
+from reportkit.bundle import check_destination, path_from_bundle, sha256_bytes, write_bundle
 from reportkit.pipeline import Progress, Timings, package_versions, run_analysis
 from reportkit.results import InputFile, StudyResults
 from reportkit.spec.loaded import LoadedSpec
+from reportkit.spec.models import Spec
+
+if TYPE_CHECKING:
+    from reportkit.verify import VerifyReport
 
 
 @dataclass(frozen=True)
@@ -75,6 +80,42 @@ def output_folder(loaded: LoadedSpec, output: str | Path | None) -> Path:
     return loaded.resolve_path(loaded.spec.run.output)
 
 
+def input_locations(loaded: LoadedSpec) -> dict[str, Path]:
+    """The file behind each input role of a run: the data file and, when read from a file,
+    the spec."""
+    out = {"data": loaded.resolve_path(loaded.spec.data.path)}
+    if loaded.source is not None:
+        out["spec"] = loaded.source
+    return out
+
+
+def spec_for_bundle(loaded: LoadedSpec, bundle: Path) -> Spec:
+    """The spec with ``data.path`` relative to the bundle folder, so that the resolved spec
+    runs from the bundle (its folder is then the base of relative paths); the rest as is."""
+    rel = path_from_bundle(loaded.resolve_path(loaded.spec.data.path), bundle)
+    if rel is None:
+        return loaded.spec
+    data = loaded.spec.data.model_copy(update={"path": rel})
+    return loaded.spec.model_copy(update={"data": data})
+
+
+def manifest_inputs(
+    loaded: LoadedSpec, results: StudyResults, bundle: Path
+) -> list[dict[str, Any]]:
+    """The manifest's ``inputs``: each input file's checksum and, where the file can be
+    reached by a relative path, ``path_from_bundle`` (read by ``reportkit verify``)."""
+    locations = input_locations(loaded)
+    out = []
+    for item in results.provenance.inputs:
+        entry: dict[str, Any] = item.model_dump()
+        location = locations.get(item.role)
+        rel = path_from_bundle(location, bundle) if location is not None else None
+        if rel is not None:
+            entry["path_from_bundle"] = rel
+        out.append(entry)
+    return out
+
+
 def render_files(
     loaded: LoadedSpec,
     results: StudyResults,
@@ -84,8 +125,13 @@ def render_files(
     timings: Timings | None = None,
     progress: Progress | None = None,
     pdf: bool = True,
+    bundle: Path | None = None,
 ) -> dict[str, bytes]:
-    """Every bundle file except the manifest, as bytes."""
+    """Every bundle file except the manifest, as bytes.
+
+    With ``bundle`` (the folder the files will be written to), the resolved spec's
+    ``data.path`` is written relative to it; otherwise as in the spec.
+    """
     from reportkit.exports import table_files
     from reportkit.report.figures import build_figures
     from reportkit.report.html import RunInfo, render_html
@@ -93,7 +139,8 @@ def render_files(
 
     timings = timings if timings is not None else Timings()
     files: dict[str, bytes] = {"results.json": results.to_json().encode()}
-    files["spec.resolved.yaml"] = dump_resolved_spec(loaded.spec).encode()
+    spec = spec_for_bundle(loaded, bundle) if bundle is not None else loaded.spec
+    files["spec.resolved.yaml"] = dump_resolved_spec(spec).encode()
     for name, text in table_files(results).items():
         files[f"tables/{name}"] = text.encode()
     with timings.stage("figures", progress):
@@ -121,14 +168,26 @@ def run(
     progress: Progress | None = None,
     pdf: bool = True,
 ) -> RunOutcome:
-    """The main job: analyse, render and write the bundle atomically."""
+    """The main job: analyse, render and write the bundle atomically.
+
+    The bundle describes itself: the manifest gives each input's path from the bundle
+    folder and the resolved spec's ``data.path`` is relative to the bundle, so that
+    ``reportkit verify BUNDLE`` can re-run it from the bundle alone.
+    """
     dest = output_folder(loaded, output)
     check_destination(dest, overwrite)
     timings = Timings()
     results = analyse(loaded, timings=timings, progress=progress)
     date = generated_on()
     files = render_files(
-        loaded, results, command=command, date=date, timings=timings, progress=progress, pdf=pdf
+        loaded,
+        results,
+        command=command,
+        date=date,
+        timings=timings,
+        progress=progress,
+        pdf=pdf,
+        bundle=dest,
     )
     manifest = {
         "bundle_format": 1,
@@ -136,9 +195,16 @@ def run(
         "results_schema_version": results.schema_version,
         "generated_on": date,
         "command": command,
-        "inputs": [f.model_dump() for f in results.provenance.inputs],
+        "inputs": manifest_inputs(loaded, results, dest),
         "software": {"python": results.provenance.python, **package_versions()},
     }
     with timings.stage("writing bundle", progress):
         write_bundle(dest, files, manifest, overwrite=overwrite)
     return RunOutcome(results=results, bundle=dest, timings=timings)
+
+
+def verify(bundle: str | Path, *, data: str | Path | None = None) -> VerifyReport:
+    """Check a bundle's checksums, re-run it and compare every number (``reportkit.verify``)."""
+    from reportkit.verify import verify_bundle
+
+    return verify_bundle(Path(bundle), data=Path(data) if data is not None else None)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import shutil
 import tempfile
 from collections.abc import Mapping
@@ -38,6 +39,22 @@ def check_destination(dest: Path, overwrite: bool) -> None:
 
 def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
+
+
+def path_from_bundle(target: Path, bundle: Path) -> str | None:
+    """Where ``target`` is, seen from the bundle folder: a relative POSIX path.
+
+    Written into the manifest and the resolved spec so that ``reportkit verify`` finds the
+    inputs from the bundle alone, wherever the project folder sits, without putting
+    absolute machine paths into the bundle. Both paths are resolved first (symbolic
+    links followed), because the operating system resolves ``..`` from the real folder.
+    None when no relative path exists (different drives on Windows).
+    """
+    try:
+        rel = os.path.relpath(target.resolve(), bundle.resolve())
+    except ValueError:
+        return None
+    return Path(rel).as_posix()
 
 
 def write_bundle(

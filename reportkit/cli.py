@@ -1,8 +1,9 @@
 """Command line: parse, call the API, map errors to exit codes.
 
-Exit codes: 0 success; 2 bad spec, data or output folder (one clear paragraph, no
-traceback); 1 unexpected internal error. Heavy libraries are imported inside the
-commands so that ``--help``, ``schema`` and ``check`` start quickly.
+Exit codes: 0 success; 2 bad spec, data, output folder or bundle (one clear paragraph, no
+traceback); 1 unexpected internal error, or (``verify``) a bundle that does not reproduce.
+Heavy libraries are imported inside the commands so that ``--help``, ``schema``, ``check``
+and ``verify --help`` start quickly.
 """
 
 from __future__ import annotations
@@ -160,6 +161,42 @@ def check(spec: Annotated[Path, typer.Argument(help="The spec file (YAML).")]) -
     out(f"  controls: {', '.join(d.control_names) or '(none)'}")
     out(f"  fixed effects: {', '.join(d.fixed_effect_names) or '(none)'}")
     out(f"  estimators: {', '.join(s.estimators)}; covariance: {s.covariance}")
+
+
+@app.command()
+def verify(
+    bundle: Annotated[Path, typer.Argument(help="The bundle folder that 'reportkit run' wrote.")],
+    data: Annotated[
+        Path | None,
+        typer.Option(
+            "--data",
+            help="The data file, when it is not where the bundle expects it "
+            "(e.g. the bundle was moved).",
+        ),
+    ] = None,
+    show_all: Annotated[
+        bool, typer.Option("--all", help="List every differing value (default: the first 40).")
+    ] = False,
+) -> None:
+    """Check BUNDLE's checksums, re-run it and compare every number with its results.json.
+
+    Exit code 0: all agrees; 1: a file or a number differs; 2: BUNDLE cannot be used.
+    """
+    from reportkit.verify import report_lines, verify_bundle
+
+    typer.echo(
+        f"reportkit {__version__} verify: checking '{bundle}' "
+        "(checksums, then re-running the analysis)"
+    )
+    try:
+        report = verify_bundle(bundle, data=data)
+    except ReportkitError as err:
+        _fail(err)
+        return
+    for line in report_lines(report, limit=None if show_all else 40):
+        typer.echo(line)
+    if not report.ok:
+        raise typer.Exit(code=1)
 
 
 @app.command()
