@@ -78,6 +78,7 @@ def run_analysis(
     """Compute everything the appendix shows; no files are written here."""
     from threadpoolctl import threadpool_limits
 
+    from reportkit.balance import balance_checks
     from reportkit.data.prepare import prepare
     from reportkit.estimation import estimate
 
@@ -86,14 +87,32 @@ def run_analysis(
     with threadpool_limits(limits=1):
         with timings.stage("reading and preparing data", progress):
             prepared = prepare(loaded)
+        labels = with_indicator_labels(dict(spec.model.labels), prepared.design.control_names)
         with timings.stage("estimation and tests", progress):
             est = estimate(
                 prepared.design,
                 covariance=spec.covariance,
                 estimators=list(spec.estimators),
                 confidence_level=spec.inference.confidence_level,
-                labels=dict(spec.model.labels),
+                labels=labels,
                 crosscheck=spec.run.crosscheck,
+            )
+        with timings.stage("balance and placebo checks", progress):
+            balance = balance_checks(
+                prepared.design,
+                prepared.extras,
+                covariates=(
+                    list(spec.balance.covariates)
+                    if spec.balance.covariates is not None
+                    else list(prepared.design.control_names)
+                ),
+                pre_treatment=list(spec.balance.pre_treatment),
+                placebo_outcomes=list(spec.balance.placebo_outcomes),
+                cut_points=dict(spec.balance.cut_points),
+                covariance=spec.covariance,
+                labels=labels,
+                level=spec.inference.confidence_level,
+                model_controls=list(spec.model.controls),
             )
     design = prepared.design
     model = spec.model
@@ -114,7 +133,7 @@ def run_analysis(
             fixed_effects=list(model.fixed_effects),
             cluster_by=list(model.cluster_by),
             weights=model.weights,
-            labels=dict(model.labels),
+            labels=labels,
             n_instruments=len(model.instruments),
             n_endogenous=len(model.endogenous),
             overidentification_degree=len(model.instruments) - len(model.endogenous),
@@ -128,6 +147,7 @@ def run_analysis(
         diagnostics=est.diagnostics,
         strength=est.strength,
         weak_iv=est.weak_iv,
+        balance=balance,
         provenance=Provenance(
             inputs=sorted(
                 [*prepared.inputs, *(extra_inputs or [])], key=lambda f: (f.role, f.name)
@@ -138,6 +158,16 @@ def run_analysis(
             crosschecks=crosschecks,
         ),
     )
+
+
+def with_indicator_labels(labels: dict[str, str], names: tuple[str, ...]) -> dict[str, str]:
+    """Add readable labels for categorical indicators: 'income_band=low' -> 'Income band: low'."""
+    out = dict(labels)
+    for name in names:
+        column, sep, level = name.partition("=")
+        if sep and name not in out and column in labels:
+            out[name] = f"{labels[column]}: {level}"
+    return out
 
 
 def _crosscheck(row: CrossCheckRow) -> CrossCheck:

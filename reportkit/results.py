@@ -14,7 +14,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 
-SCHEMA_VERSION = "1.1.0"
+SCHEMA_VERSION = "1.2.0"
 
 
 class _Frozen(BaseModel):
@@ -377,6 +377,86 @@ class ModelDescription(_Frozen):
     overidentification_degree: int
 
 
+# --- is the instrument as good as random? -------------------------------------------
+
+
+class GroupMean(_Frozen):
+    """Mean of a covariate within one group of instrument values."""
+
+    group: str = Field(description="The group in words, e.g. 'value 1' or '2.0 < x <= 4.5'.")
+    mean: float | None = Field(description="None when the group has no rows with the covariate.")
+    n: int
+
+
+class InstrumentCoefficient(_Frozen):
+    """One instrument's coefficient in a balance or placebo regression."""
+
+    instrument: str
+    label: str
+    estimate: float
+    std_error: float
+    p_value: float
+
+
+class BalanceCell(_Frozen):
+    """A covariate against one instrument."""
+
+    instrument: str
+    groups: list[GroupMean]
+    difference: float | None = Field(description="Mean of the last group minus the first.")
+    std_difference: float | None = Field(
+        description="Difference divided by the pooled standard deviation of the two groups."
+    )
+    unconditional: InstrumentCoefficient | NotApplicable
+    conditional: InstrumentCoefficient | NotApplicable = Field(
+        description="Conditional on the fixed effects (n/a without fixed effects)."
+    )
+
+
+class BalanceRow(_Frozen):
+    covariate: str
+    label: str
+    kind: Literal["control", "pre_treatment"]
+    n_used: int
+    cells: list[BalanceCell]
+
+
+class JointBalance(_Frozen):
+    """An instrument regressed on all balance covariates: are they jointly unrelated to it?"""
+
+    instrument: str
+    label: str
+    test: TestOrNA
+
+
+class OutcomeIndex(_Frozen):
+    """The outcome predicted from the covariates alone, regressed on the instruments."""
+
+    coefficients: list[InstrumentCoefficient]
+    joint_test: TestOrNA
+    r2_prediction: float = Field(description="R-squared of the outcome on the covariates.")
+
+
+class PlaceboResult(_Frozen):
+    """A pre-treatment outcome the instruments should not move."""
+
+    outcome: str
+    label: str
+    n_used: int
+    reduced_form: list[InstrumentCoefficient]
+    joint_test: TestOrNA
+    tsls: list[Coefficient] | NotApplicable
+
+
+class Balance(_Frozen):
+    rows: list[BalanceRow]
+    joint: list[JointBalance]
+    outcome_index: OutcomeIndex | NotApplicable
+    placebo: list[PlaceboResult]
+    covariance: str
+    conditioning: str = Field(description="What the conditional regressions hold fixed.")
+
+
 class StudyInfo(_Frozen):
     title: str
     authors: list[str]
@@ -400,6 +480,7 @@ class StudyResults(_Frozen):
     diagnostics: Diagnostics
     strength: Strength
     weak_iv: WeakIVRobust | NotApplicable
+    balance: Balance | NotApplicable
     provenance: Provenance
 
     def to_json(self) -> str:

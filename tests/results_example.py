@@ -10,7 +10,8 @@ Shape: one endogenous regressor, two instruments (over-identified by one), a clu
 covariance, and NotApplicable entries where a cluster covariance rules a statistic out
 (Sargan, Basmann, the CLR test) or two instruments make it degenerate (the C statistics).
 The strength and weak-instrument-robust parts are kept consistent with the first stage and
-the 2SLS estimate (see ``example_strength`` and ``example_weak_iv``).
+the 2SLS estimate (see ``example_strength`` and ``example_weak_iv``). The balance part
+(``example_balance``) is illustrative too: the lottery looks balanced, the distance less so.
 """
 
 from __future__ import annotations
@@ -20,6 +21,9 @@ import math
 from typing import Any
 
 from reportkit.results import (
+    Balance,
+    BalanceCell,
+    BalanceRow,
     BinnedScatter,
     CodingNote,
     Coefficient,
@@ -34,12 +38,17 @@ from reportkit.results import (
     EstimatorResult,
     FirstStage,
     FirstStageCoefficient,
+    GroupMean,
     InputFile,
+    InstrumentCoefficient,
     InstrumentValidity,
     Interval,
+    JointBalance,
     MissingCount,
     ModelDescription,
     NotApplicable,
+    OutcomeIndex,
+    PlaceboResult,
     Provenance,
     PValueCurve,
     ReducedForm,
@@ -67,6 +76,8 @@ LABELS = {
     "grade": "school grade",
     "district": "district",
     "school_id": "school",
+    "free_meals": "eligible for free school meals",
+    "reading_before": "reading score in the year before the pilot",
 }
 
 
@@ -298,6 +309,7 @@ def example_results(**overrides: Any) -> StudyResults:
         ),
         "strength": example_strength(),
         "weak_iv": example_weak_iv(),
+        "balance": example_balance(),
         "provenance": Provenance(
             inputs=[
                 InputFile(
@@ -564,4 +576,213 @@ def example_weak_iv_with_clr() -> WeakIVRobust:
             ),
             "curve": base.curve.model_copy(update={"clr": clr_curve}),
         }
+    )
+
+
+# --- is the instrument as good as random? (illustrative) -------------------------------
+
+LOTTERY_GROUPS = ("value 0", "value 1")
+_KM = LABELS["distance_km"]  # interval groups name the instrument, as the engine writes them
+DISTANCE_GROUPS = (
+    f"{_KM} <= 1.80",
+    f"1.80 < {_KM} <= 3.40",
+    f"3.40 < {_KM} <= 5.90",
+    f"{_KM} > 5.90",
+)
+
+
+def _instrument_coef(name: str, estimate: float, std_error: float) -> InstrumentCoefficient:
+    return InstrumentCoefficient(
+        instrument=name,
+        label=LABELS[name],
+        estimate=estimate,
+        std_error=std_error,
+        p_value=_normal_p(estimate / std_error),
+    )
+
+
+def _balance_cell(
+    instrument: str,
+    groups: tuple[str, ...],
+    means: list[float],
+    counts: list[int],
+    pooled_sd: float,
+    unconditional: tuple[float, float],
+    conditional: tuple[float, float],
+) -> BalanceCell:
+    """One covariate against one instrument; difference and standardized difference derived."""
+    difference = means[-1] - means[0]
+    return BalanceCell(
+        instrument=instrument,
+        groups=[
+            GroupMean(group=g, mean=m, n=n) for g, m, n in zip(groups, means, counts, strict=True)
+        ],
+        difference=difference,
+        std_difference=difference / pooled_sd,
+        unconditional=_instrument_coef(instrument, *unconditional),
+        conditional=_instrument_coef(instrument, *conditional),
+    )
+
+
+def _quarters(n: int) -> list[int]:
+    base, extra = divmod(n, 4)
+    return [base + (1 if i < extra else 0) for i in range(4)]
+
+
+def _f_test(name: str, statistic: float, df: list[float], p_value: float, null: str) -> TestResult:
+    return TestResult(
+        name=name,
+        statistic=statistic,
+        distribution="F",
+        df=df,
+        p_value=p_value,
+        covariance=CLUSTER_COV,
+        null=null,
+        reference="Wald test with a cluster covariance (Liang and Zeger, 1986)",
+    )
+
+
+def example_balance() -> Balance:
+    """Illustrative balance results: three covariates (one pre-treatment), two instruments.
+
+    Invented numbers. The voucher lottery (binary) is grouped by its two values, the distance
+    (continuous) by quartiles. Within a cell the difference is the last group's mean minus
+    the first and the standardized difference that over an invented pooled standard
+    deviation; group counts add up to the covariate's rows. The joint-test p-values are
+    the F survival function at the stated statistic (scipy.stats.f.sf), so that they read
+    consistently; nothing here was estimated.
+    """
+    n, n_meals = 4624, 4511
+    lottery_n, lottery_meals_n = [2871, 1753], [2801, 1710]
+    rows = [
+        BalanceRow(
+            covariate="age",
+            label=LABELS["age"],
+            kind="control",
+            n_used=n,
+            cells=[
+                _balance_cell(
+                    "voucher_won",
+                    LOTTERY_GROUPS,
+                    [13.42, 13.45],
+                    lottery_n,
+                    0.94,
+                    (0.03, 0.031),
+                    (0.027, 0.029),
+                ),
+                _balance_cell(
+                    "distance_km",
+                    DISTANCE_GROUPS,
+                    [13.39, 13.44, 13.45, 13.47],
+                    _quarters(n),
+                    0.94,
+                    (0.011, 0.008),
+                    (0.006, 0.008),
+                ),
+            ],
+        ),
+        BalanceRow(
+            covariate="prior_score",
+            label=LABELS["prior_score"],
+            kind="control",
+            n_used=n,
+            cells=[
+                _balance_cell(
+                    "voucher_won",
+                    LOTTERY_GROUPS,
+                    [61.8, 62.3],
+                    lottery_n,
+                    14.6,
+                    (0.5, 0.52),
+                    (0.44, 0.49),
+                ),
+                _balance_cell(
+                    "distance_km",
+                    DISTANCE_GROUPS,
+                    [63.5, 62.4, 61.6, 60.9],
+                    _quarters(n),
+                    14.6,
+                    (-0.42, 0.19),
+                    (-0.21, 0.17),
+                ),
+            ],
+        ),
+        BalanceRow(
+            covariate="free_meals",
+            label=LABELS["free_meals"],
+            kind="pre_treatment",
+            n_used=n_meals,
+            cells=[
+                _balance_cell(
+                    "voucher_won",
+                    LOTTERY_GROUPS,
+                    [0.231, 0.224],
+                    lottery_meals_n,
+                    0.42,
+                    (-0.007, 0.014),
+                    (-0.005, 0.013),
+                ),
+                _balance_cell(
+                    "distance_km",
+                    DISTANCE_GROUPS,
+                    [0.198, 0.219, 0.236, 0.262],
+                    _quarters(n_meals),
+                    0.42,
+                    (0.011, 0.004),
+                    (0.006, 0.004),
+                ),
+            ],
+        ),
+    ]
+    joint_null = "the covariates are jointly unrelated to the instrument"
+    tutoring = _coef("tutoring_hours", 0.09, 0.21)
+    return Balance(
+        rows=rows,
+        joint=[
+            JointBalance(
+                instrument="voucher_won",
+                label=LABELS["voucher_won"],
+                test=_f_test("Joint balance test", 0.41, [3.0, 60.0], 0.7464, joint_null),
+            ),
+            JointBalance(
+                instrument="distance_km",
+                label=LABELS["distance_km"],
+                test=_f_test("Joint balance test", 3.18, [3.0, 60.0], 0.0303, joint_null),
+            ),
+        ],
+        outcome_index=OutcomeIndex(
+            coefficients=[
+                _instrument_coef("voucher_won", 0.21, 0.35),
+                _instrument_coef("distance_km", -0.16, 0.07),
+            ],
+            joint_test=_f_test(
+                "Outcome-index joint test",
+                2.74,
+                [2.0, 60.0],
+                0.0727,
+                "the instruments are unrelated to the outcome predicted from the covariates",
+            ),
+            r2_prediction=0.41,
+        ),
+        placebo=[
+            PlaceboResult(
+                outcome="reading_before",
+                label=LABELS["reading_before"],
+                n_used=4388,
+                reduced_form=[
+                    _instrument_coef("voucher_won", 0.31, 0.62),
+                    _instrument_coef("distance_km", -0.05, 0.09),
+                ],
+                joint_test=_f_test(
+                    "Placebo reduced-form joint test",
+                    0.27,
+                    [2.0, 60.0],
+                    0.7643,
+                    "the instruments do not shift the placebo outcome",
+                ),
+                tsls=[tutoring],
+            )
+        ],
+        covariance=CLUSTER_COV,
+        conditioning="the district fixed effects",
     )

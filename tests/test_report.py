@@ -42,7 +42,8 @@ RUN = RunInfo(
 )
 
 # Section headings and their order are fixed by the project brief for the appendix (the
-# strength and weak-instrument sections by the brief of the instrument-strength work).
+# strength and weak-instrument sections by the brief of the instrument-strength work, the
+# balance section by the brief of the balance work).
 EXPECTED_TITLES = [
     "At a glance",
     "What was estimated",
@@ -51,6 +52,7 @@ EXPECTED_TITLES = [
     "First stage and reduced form",
     "How strong are the instruments",
     "Inference that stays valid with weak instruments",
+    "Is the instrument as good as random?",
     "Specification tests",
     "What the data cannot tell you",
     "Provenance",
@@ -460,7 +462,12 @@ def test_run_info_needs_an_iso_date() -> None:
 
 
 def test_figures_are_deterministic_svg(results: rs.StudyResults, figures: dict) -> None:
-    assert sorted(figures) == ["estimates-1", "first-stage-1", "weak-iv-p-values"]
+    assert sorted(figures) == [
+        "balance-std-differences",
+        "estimates-1",
+        "first-stage-1",
+        "weak-iv-p-values",
+    ]
     again = make_figures(results)
     for key, figure in figures.items():
         assert figure.svg.startswith("<?xml")
@@ -472,6 +479,7 @@ def test_figures_are_deterministic_svg(results: rs.StudyResults, figures: dict) 
 
 def test_figures_as_data_uris(figures: dict) -> None:
     assert {f.filename for f in figures.values()} == {
+        "balance-std-differences.svg",
         "estimates-1.svg",
         "first-stage-1.svg",
         "weak-iv-p-values.svg",

@@ -309,7 +309,10 @@ def test_unknown_top_level_key_suggests_the_nearest(tmp_path: Path) -> None:
     err = spec_error(tmp_path, MINIMAL + "estimatrs: [ols]\n")
     assert err.where == "spec.yaml, line 9, estimatrs"
     assert "unknown key 'estimatrs'; did you mean 'estimators'?" in err.message
-    assert "Allowed top-level keys: study, data, model, estimators, inference, run." in err.message
+    assert (
+        "Allowed top-level keys: study, data, model, estimators, inference, balance, run."
+        in err.message
+    )
 
 
 def test_unknown_nested_key_suggests_the_nearest(tmp_path: Path) -> None:

@@ -23,6 +23,7 @@ ROLE_WORDS: dict[str, str] = {
     "instruments": "an instrument",
     "controls": "a control",
     "weights": "the weights",
+    "balance": "a balance or placebo variable",
 }
 
 

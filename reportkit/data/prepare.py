@@ -20,7 +20,7 @@ Rows keep their order in the file throughout, so the same input gives the same a
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -39,7 +39,7 @@ from reportkit.engine.design import Design
 from reportkit.errors import DataError
 from reportkit.results import CodingNote, InputFile, SampleAccount, SampleStep
 from reportkit.spec.loaded import FieldPath, LoadedSpec
-from reportkit.spec.models import ModelSection
+from reportkit.spec.models import ModelSection, Spec
 
 
 @dataclass(frozen=True)
@@ -51,6 +51,9 @@ class PreparedData:
     inputs: list[InputFile]  # the data file, role "data"
     frame_columns: list[str]  # every column of the data file, in file order
     row_positions: np.ndarray  # 0-based rows of the file in the sample, in file order
+    # balance and placebo columns on the estimation sample (float, NaN where missing; their
+    # own missing values do not remove rows from the sample)
+    extras: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -77,6 +80,30 @@ def model_variables(model: ModelSection) -> list[Variable]:
             out.append(Variable(name, role, ("model", role, i)))
     if model.weights is not None:
         out.append(Variable(model.weights, "weights", ("model", "weights")))
+    return out
+
+
+def balance_variables(spec: Spec) -> list[Variable]:
+    """Columns read only for balance and placebo checks, with where the spec names them."""
+    out: list[Variable] = []
+    if spec.balance.covariates is None:
+        out += [
+            Variable(name, "balance", ("model", "controls", i))
+            for i, name in enumerate(spec.model.controls)
+        ]
+    else:
+        out += [
+            Variable(name, "balance", ("balance", "covariates", i))
+            for i, name in enumerate(spec.balance.covariates)
+        ]
+    out += [
+        Variable(name, "balance", ("balance", "pre_treatment", i))
+        for i, name in enumerate(spec.balance.pre_treatment)
+    ]
+    out += [
+        Variable(name, "balance", ("balance", "placebo_outcomes", i))
+        for i, name in enumerate(spec.balance.placebo_outcomes)
+    ]
     return out
 
 
@@ -265,7 +292,13 @@ def prepare(loaded: LoadedSpec) -> PreparedData:
         )
     variables = model_variables(model)
     _check_columns_exist(loaded, variables, frame_columns, path.name)
-    read_columns = [v.column for v in variables] + [f.column for f in spec.data.filters]
+    extra_variables = balance_variables(spec)
+    _check_columns_exist(loaded, extra_variables, frame_columns, path.name)
+    read_columns = (
+        [v.column for v in variables]
+        + [f.column for f in spec.data.filters]
+        + [v.column for v in extra_variables]
+    )
     frame, made_numeric = replace_missing_codes(frame, spec.data.missing_codes, read_columns)
 
     steps = [SampleStep(step="rows read", rows_removed=0, rows_remaining=rows_read)]
@@ -354,10 +387,18 @@ def prepare(loaded: LoadedSpec) -> PreparedData:
         codings=codings,
         dropped_columns=screened.dropped,
     )
+    extras: dict[str, np.ndarray] = {}
+    for variable in extra_variables:
+        if variable.column not in extras:
+            values, _ = numeric_column(
+                frame[variable.column], variable.column, "balance", loaded.where(variable.field)
+            )
+            extras[variable.column] = np.ascontiguousarray(values, dtype=float)
     return PreparedData(
         design=design,
         sample=sample,
         inputs=[digest],
         frame_columns=frame_columns,
         row_positions=frame.index.to_numpy(dtype=np.int64),
+        extras=extras,
     )

@@ -11,6 +11,10 @@ Anderson-Rubin (Anderson & Rubin, 1949) and, when present, the conditional likel
 ratio (Moreira, 2003) p-values against the hypothesised coefficient, with the test level
 drawn as a line and the confidence sets (the values not rejected) shaded.
 
+And one figure of covariate balance, when it was computed: the standardized difference
+of each covariate between the last and first group of each instrument, with a band at
+|d| <= 0.1 (a common rule of thumb, no source; not a test).
+
 Output is SVG text, byte-identical for the same results: the SVG hash salt is fixed,
 the date is left out of the metadata, and figure size, fonts and palette are fixed.
 Figures are built on ``matplotlib.figure.Figure`` directly (no pyplot), so no global
@@ -22,13 +26,16 @@ from __future__ import annotations
 
 import base64
 import io
+import math
 import textwrap
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from reportkit.report import wording
 from reportkit.report.formatting import (
+    and_join,
     fmt_ci,
     fmt_int,
     fmt_level,
@@ -40,11 +47,13 @@ from reportkit.report.formatting import (
     upper_first,
 )
 from reportkit.results import (
+    Balance,
     BinnedScatter,
     Coefficient,
     ConfidenceSet,
     EstimatorResult,
     FirstStage,
+    NotApplicable,
     PValueCurve,
     SetOrNA,
     StudyResults,
@@ -80,6 +89,21 @@ ESTIMATES_BASE_HEIGHT = 1.3  # inches for axis and margins
 CURVE_SIZE = (6.4, 3.3)  # inches, the p-value curve
 
 P_VALUE_CURVE_KEY = "weak-iv-p-values"
+BALANCE_KEY = "balance-std-differences"
+
+BALANCE_WIDTH = 6.4  # inches
+BALANCE_BASE_HEIGHT = 1.5  # inches for axis, title and legend
+BALANCE_ROW_HEIGHT = 0.2  # inches per marker row within a covariate
+BALANCE_ROW_PAD = 0.25  # inches between covariates
+BALANCE_MIN_SPAN = 0.25  # the x-axis shows at least -0.25..0.25, so the band is visible
+BAND_FILL = "#e3eee6"  # pale sage: the rule-of-thumb band
+BALANCE_STYLES = (  # (colour, marker) per instrument, distinguishable without colour
+    (IV_COLOURS["2sls"], "o"),
+    (FIT_LINE, "s"),
+    (IV_COLOURS["gmm"], "D"),
+    (IV_COLOURS["liml"], "^"),
+    (OLS_COLOUR, "v"),
+)
 
 _RC: dict[str, Any] = {
     "svg.hashsalt": "reportkit",
@@ -444,9 +468,149 @@ def p_value_curve_figure(weak_iv: WeakIVRobust, confidence_level: float) -> Figu
     )
 
 
+def _balance_points(
+    balance: Balance, labels: Mapping[str, str]
+) -> tuple[list[str], list[str], list[list[float | None]]]:
+    """Covariate labels, instrument labels and the standardized differences (None: not
+    computed), indexed [covariate][instrument], instruments in the first row's order."""
+    if not balance.rows:
+        return [], [], []
+    instruments = [cell.instrument for cell in balance.rows[0].cells]
+    values: list[list[float | None]] = []
+    for row in balance.rows:
+        by_name = {cell.instrument: cell.std_difference for cell in row.cells}
+        missing = [name for name in instruments if name not in by_name]
+        if missing:
+            raise ValueError(
+                f"the balance row of '{row.covariate}' has no cell for {', '.join(missing)}"
+            )
+        values.append(
+            [
+                v if v is not None and math.isfinite(v) else None
+                for v in (by_name[name] for name in instruments)
+            ]
+        )
+    return (
+        [row.label for row in balance.rows],
+        [label(name, labels) for name in instruments],
+        values,
+    )
+
+
+def has_balance_figure(balance: Balance | NotApplicable) -> bool:
+    """Is there a balance figure to draw: balance computed, one standardized difference at least."""
+    if not isinstance(balance, Balance):
+        return False
+    _, _, values = _balance_points(balance, {})
+    return any(v is not None for row in values for v in row)
+
+
+def balance_svg(balance: Balance, labels: Mapping[str, str]) -> str:
+    """SVG of the standardized differences per covariate and instrument, with the band."""
+    covariates, instruments, values = _balance_points(balance, labels)
+    drawn = [abs(v) for row in values for v in row if v is not None]
+    if not drawn:
+        raise ValueError("no standardized difference was computed; there is nothing to draw")
+    band = wording.STD_DIFFERENCE_BAND
+    span = max(BALANCE_MIN_SPAN, 1.15 * max(drawn))
+    per_covariate = BALANCE_ROW_HEIGHT * len(instruments) + BALANCE_ROW_PAD
+    height = BALANCE_BASE_HEIGHT + per_covariate * len(covariates)
+    with _style():
+        fig = _new_figure(BALANCE_WIDTH, height)
+        ax = fig.subplots()
+        ax.axvspan(
+            -band,
+            band,
+            color=BAND_FILL,
+            linewidth=0,
+            label=f"|d| \N{LESS-THAN OR EQUAL TO} {fmt_num(band, 1)} (rule of thumb)",
+        )
+        ax.axvline(0.0, color=ZERO_LINE, linewidth=0.9, linestyle=(0, (4, 3)))
+        count = len(instruments)
+        offsets = [0.0] if count == 1 else [0.3 - 0.6 * j / (count - 1) for j in range(count)]
+        centres = list(range(len(covariates)))[::-1]  # first covariate on top
+        for j, name in enumerate(instruments):
+            colour, marker = BALANCE_STYLES[j % len(BALANCE_STYLES)]
+            xs = [row[j] for row in values]
+            ys = [c + offsets[j] for c in centres]
+            points = [(x, y) for x, y in zip(xs, ys, strict=True) if x is not None]
+            ax.plot(
+                [x for x, _ in points],
+                [y for _, y in points],
+                linestyle="none",
+                marker=marker,
+                markersize=6,
+                color=colour,
+                label=_wrap(name, 60),
+            )
+        ax.set_yticks(centres, [_wrap(c, 28) for c in covariates])
+        ax.set_ylim(-0.7, len(covariates) - 0.3)
+        ax.set_xlim(-span, span)
+        ax.set_xlabel("Standardized difference, last group minus first (pooled SDs)")
+        ax.set_title("Covariate balance across instrument groups", loc="left")
+        _tidy_axes(ax)
+        ax.grid(False, axis="y")
+        ax.tick_params(axis="y", length=0)
+        fig.legend(loc="outside lower center", ncols=min(3, count + 1), frameon=False, fontsize=8)
+        return _to_svg(fig)
+
+
+def _balance_alt(balance: Balance, labels: Mapping[str, str]) -> str:
+    covariates, instruments, values = _balance_points(balance, labels)
+    band = wording.STD_DIFFERENCE_BAND
+    parts = []
+    beyond = []
+    missing = []
+    for covariate, row in zip(covariates, values, strict=True):
+        shown = []
+        for instrument, value in zip(instruments, row, strict=True):
+            if value is None:
+                missing.append(f"{covariate} with {instrument}")
+                continue
+            shown.append(f"{instrument} {fmt_num(value)}")
+            if abs(value) > band:
+                beyond.append(f"{covariate} with {instrument} ({fmt_num(value)})")
+        if shown:
+            parts.append(f"{covariate}: {'; '.join(shown)}")
+    text = [
+        "Standardized differences of each covariate's mean between the last and first group "
+        "of each instrument (in pooled standard deviations): " + ". ".join(parts) + ".",
+        f"A band marks |d| <= {fmt_num(band, 1)}, a common rule of thumb; "
+        + (
+            f"outside it: {and_join(beyond)}."
+            if beyond
+            else "every difference drawn lies inside it."
+        ),
+    ]
+    if missing:
+        text.append(f"Not computed, so not drawn: {and_join(missing)}.")
+    return " ".join(text)
+
+
+def balance_figure(balance: Balance, labels: Mapping[str, str]) -> FigureImage:
+    """The balance figure as a ``FigureImage`` with its alt text and caption."""
+    band = fmt_num(wording.STD_DIFFERENCE_BAND, 1)
+    caption = (
+        "Standardized difference of each covariate's mean between the last and the first "
+        "group of each instrument (for a quartile grouping, the top quarter minus the bottom "
+        f"one), one marker per instrument. The shaded band marks |d| <= {band}, a common rule "
+        "of thumb for a negligible imbalance; it is not a test, and a difference inside it "
+        "says nothing about unobserved characteristics. The dashed line marks zero."
+    )
+    _, _, values = _balance_points(balance, labels)
+    if any(v is None for row in values for v in row):
+        caption += " Differences that could not be computed are not drawn (see the tables)."
+    return FigureImage(
+        key=BALANCE_KEY,
+        svg=balance_svg(balance, labels),
+        alt=_balance_alt(balance, labels),
+        caption=caption,
+    )
+
+
 def make_figures(results: StudyResults) -> dict[str, FigureImage]:
     """Every figure of the appendix, keyed by ``estimates_key`` / ``first_stage_key`` /
-    ``P_VALUE_CURVE_KEY``."""
+    ``P_VALUE_CURVE_KEY`` / ``BALANCE_KEY``."""
     labels = results.model.labels
     level = fmt_pct(results.conventions.confidence_level)
     figures: dict[str, FigureImage] = {}
@@ -481,6 +645,9 @@ def make_figures(results: StudyResults) -> dict[str, FigureImage]:
     if isinstance(weak_iv, WeakIVRobust) and weak_iv.curve is not None:
         confidence_level = results.conventions.confidence_level
         figures[P_VALUE_CURVE_KEY] = p_value_curve_figure(weak_iv, confidence_level)
+    balance = results.balance
+    if isinstance(balance, Balance) and has_balance_figure(balance):
+        figures[BALANCE_KEY] = balance_figure(balance, labels)
     return figures
 
 

@@ -22,11 +22,14 @@ from typing import Any, Protocol
 import jinja2
 
 from reportkit.report import formatting, wording
+from reportkit.report.balance_sections import balance_glance, balance_view
 from reportkit.report.figures import (
+    BALANCE_KEY,
     ESTIMATOR_ORDER,
     P_VALUE_CURVE_KEY,
     estimates_key,
     first_stage_key,
+    has_balance_figure,
 )
 from reportkit.report.strength_sections import (
     glance_interval,
@@ -107,6 +110,11 @@ SECTIONS: tuple[Section, ...] = (
         "weak-iv-robust",
         "Inference that stays valid with weak instruments",
         "sections/weak_iv_robust.html.j2",
+    ),
+    Section(
+        "as-good-as-random",
+        "Is the instrument as good as random?",
+        "sections/as_good_as_random.html.j2",
     ),
     Section("specification-tests", "Specification tests", "sections/specification_tests.html.j2"),
     Section("cannot-tell", "What the data cannot tell you", "sections/cannot_tell.html.j2"),
@@ -259,6 +267,8 @@ def expected_figures(results: StudyResults) -> list[str]:
     keys += [first_stage_key(i) for i, fs in enumerate(results.first_stages) if fs.binned]
     if isinstance(results.weak_iv, WeakIVRobust) and results.weak_iv.curve is not None:
         keys.append(P_VALUE_CURVE_KEY)
+    if has_balance_figure(results.balance):
+        keys.append(BALANCE_KEY)
     return keys
 
 
@@ -343,6 +353,14 @@ def build_context(
         "glance_interval": glance_interval(results),
         "instrument_validity": results.diagnostics.instrument_validity,
         "c_test_caution": wording.C_TEST_CAUTION,
+        "balance_view": balance_view(results, alpha),
+        "balance_glance": balance_glance(results, alpha),
+        "balance_caution": wording.BALANCE_CAUTION,
+        "placebo_caution": wording.PLACEBO_CAUTION,
+        "std_difference_band": wording.STD_DIFFERENCE_BAND_TEXT,
+        "balance_figure": (
+            figures[BALANCE_KEY] if BALANCE_KEY in expected_figures(results) else None
+        ),
     }
 
 

@@ -347,3 +347,161 @@ TF_NO_INTERVAL = (
     "none: the first-stage F is below the smallest value the tF adjustment covers, so no "
     "finite interval applies"
 )
+
+
+# --- is the instrument as good as random? -----------------------------------------------
+
+BALANCE_CAUTION = (
+    "Balance on observed covariates is evidence, not proof: the instrument can still be "
+    "related to unobserved causes of the outcome."
+)
+PLACEBO_CAUTION = (
+    "A placebo effect far from zero is evidence against the exclusion restriction or random "
+    "assignment; one near zero is consistent with them but does not establish them."
+)
+# The band drawn around zero for standardized differences: common practice, no source. It
+# is a rule of thumb for a negligible imbalance, not a test.
+STD_DIFFERENCE_BAND = 0.1
+STD_DIFFERENCE_BAND_TEXT = (
+    f"|standardized difference| <= {STD_DIFFERENCE_BAND}, a common rule of thumb for a "
+    "negligible imbalance (not a test)"
+)
+COVARIATE_KINDS = {
+    "control": "control in the model",
+    "pre_treatment": "pre-treatment, not a control",
+}
+
+
+def coefficient_guide(conditioning: str, n_instruments: int, conditional: bool) -> str:
+    """How to read the coefficient columns of the balance tables."""
+    regressed = (
+        "the covariate regressed on the instrument"
+        if n_instruments == 1
+        else "the covariate regressed on all the instruments together, so that each "
+        "coefficient holds the other instruments fixed"
+    )
+    columns = (
+        f"; unconditional: without {conditioning}; conditional: with {conditioning} held fixed"
+        if conditional
+        else ""
+    )
+    return (
+        f"Coefficient on the instrument: {regressed}{columns}. The standard error is in "
+        "brackets, then the p-value. For a continuous instrument the coefficient is the "
+        "change in the covariate per unit of the instrument."
+    )
+
+
+def joint_balance_reading(result: TestOrNA, instrument: str, alpha: float) -> str:
+    """Reading of the joint test that the covariates are unrelated to one instrument."""
+    if isinstance(result, NotApplicable):
+        return _not_reported(result)
+    level = _level_text(alpha)
+    if result.p_value < alpha:
+        return (
+            f"The covariates together predict {instrument} (rejected at the {level} level): "
+            "the instrument is not as good as randomly assigned with respect to them. The "
+            "analysis then relies on the controls to account for these differences, and on "
+            "unobserved causes of the outcome not differing in the same way."
+        )
+    return (
+        f"No detectable joint relation between the covariates and {instrument} at the {level} "
+        "level. Random assignment would produce this, but it does not show that the "
+        "instrument is as good as random."
+    )
+
+
+def outcome_index_intro(r2_prediction: float) -> str:
+    """What the outcome index is, with how much of the outcome the covariates predict."""
+    return (
+        "The outcome index is the outcome predicted from the covariates alone (R-squared "
+        f"{fmt_num(r2_prediction)}): it weights each covariate by how strongly it predicts the "
+        "outcome, so an imbalance in the index is one that could move the estimate. The check "
+        "is only as informative as the covariates are predictive."
+    )
+
+
+def outcome_index_reading(result: TestOrNA, alpha: float) -> str:
+    """Reading of the joint test that the instruments are unrelated to the outcome index."""
+    if isinstance(result, NotApplicable):
+        return _not_reported(result)
+    level = _level_text(alpha)
+    if result.p_value < alpha:
+        return (
+            f"The instruments are related to the outcome index (rejected at the {level} "
+            "level): the observations they shift differ in characteristics that predict the "
+            "outcome, which can bias the estimate unless the controls account for them."
+        )
+    return (
+        f"No detectable relation between the instruments and the outcome index at the {level} "
+        "level. This does not rule out a relation to what the covariates do not capture."
+    )
+
+
+def placebo_reading(result: TestOrNA, outcome: str, alpha: float) -> str:
+    """Reading of the joint reduced-form test on a placebo outcome ("should be zero")."""
+    if isinstance(result, NotApplicable):
+        return _not_reported(result)
+    level = _level_text(alpha)
+    if result.p_value < alpha:
+        return (
+            f"The instruments shift {outcome}, which they should not (rejected at the {level} "
+            "level)."
+        )
+    return f"No detectable effect of the instruments on {outcome} at the {level} level."
+
+
+def placebo_tsls_reading(
+    lower: float, upper: float, regressor: str, outcome: str, confidence_level: float
+) -> str:
+    """Reading of a placebo 2SLS interval: does it include zero, and what its width means."""
+    level = fmt_pct(confidence_level)
+    if lower <= 0.0 <= upper:
+        return (
+            f"The {level} interval for the 2SLS 'effect' of {regressor} on {outcome} includes "
+            "zero; its width shows how large a placebo effect the data could miss."
+        )
+    return (
+        f"The {level} interval for the 2SLS 'effect' of {regressor} on {outcome} excludes "
+        "zero: the data are at odds with the zero effect that valid instruments imply."
+    )
+
+
+def balance_glance(joint: Sequence[tuple[str, TestOrNA]], alpha: float) -> str:
+    """The balance line of "At a glance": the smallest joint-test p-value and its meaning.
+
+    ``joint`` pairs each instrument's label with its joint balance test. With several
+    tests, the smallest p-value is reported as such: one small p-value among several is
+    more likely by chance than a single one.
+    """
+    applicable = [(name, t) for name, t in joint if isinstance(t, TestResult)]
+    if not applicable:
+        reasons = "; ".join(
+            f"{name}: {t.reason}" for name, t in joint if isinstance(t, NotApplicable)
+        )
+        if not reasons:
+            return "n/a: no joint balance test was computed"
+        return f"n/a: no joint balance test applies ({reasons})"
+    name, smallest = min(applicable, key=lambda pair: pair[1].p_value)
+    level = _level_text(alpha)
+    count = len(applicable)
+    head = (
+        f"Joint balance test of {name}: p {p_phrase(smallest.p_value)}."
+        if count == 1
+        else f"Smallest of {count} joint balance tests: p {p_phrase(smallest.p_value)}, for {name}."
+    )
+    if smallest.p_value < alpha:
+        meaning = (
+            f"The observed covariates predict this instrument at the {level} level: evidence "
+            "against its being as good as random, unless the controls account for them."
+        )
+    else:
+        noun = "the instrument is" if count == 1 else "no instrument is"
+        meaning = (
+            f"At the {level} level {noun} detectably related to the observed covariates; "
+            "this says nothing about unobserved ones."
+        )
+    skipped = [name for name, t in joint if isinstance(t, NotApplicable)]
+    if skipped:
+        meaning += f" No joint test applies to {and_join(skipped)} (see the balance section)."
+    return f"{head} {meaning}"

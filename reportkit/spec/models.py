@@ -9,6 +9,7 @@ only the spec (a variable in two roles, too few instruments) live here.
 
 from __future__ import annotations
 
+import itertools
 from typing import Annotated, Literal, get_args
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
@@ -177,6 +178,40 @@ class ModelSection(_Strict):
         return self
 
 
+class BalanceSection(_Strict):
+    """Evidence on whether the instruments look as good as randomly assigned."""
+
+    covariates: list[ColumnName] | None = Field(
+        default=None,
+        description="Covariates whose balance across instrument values is shown. Default "
+        "(null): every control of the model, categorical-control indicators included.",
+    )
+    pre_treatment: list[ColumnName] = Field(
+        default_factory=list,
+        description="Pre-treatment variables checked for balance only (not used as controls).",
+    )
+    placebo_outcomes: list[ColumnName] = Field(
+        default_factory=list,
+        description="Pre-treatment outcomes the instruments should not move: reduced form "
+        "and 2SLS read as 'should be zero'.",
+    )
+    cut_points: dict[str, list[float]] = Field(
+        default_factory=dict,
+        description="Group boundaries per continuous instrument for the table of means "
+        "(default: quartiles). A binary instrument is grouped by its two values.",
+    )
+
+    @field_validator("cut_points")
+    @classmethod
+    def _sorted_cut_points(cls, v: dict[str, list[float]]) -> dict[str, list[float]]:
+        for name, points in v.items():
+            if not points:
+                raise ValueError(f"balance.cut_points.{name} is empty; give at least one value")
+            if any(b <= a for a, b in itertools.pairwise(points)):
+                raise ValueError(f"balance.cut_points.{name} must be strictly increasing")
+        return v
+
+
 class InferenceSection(_Strict):
     """How uncertainty is measured."""
 
@@ -221,6 +256,7 @@ class Spec(_Strict):
         description="Estimators to report, from: " + ", ".join(ESTIMATORS),
     )
     inference: InferenceSection = Field(default_factory=InferenceSection)
+    balance: BalanceSection = Field(default_factory=BalanceSection)
     run: RunSection = Field(default_factory=RunSection)
 
     @field_validator("estimators")
@@ -246,6 +282,24 @@ class Spec(_Strict):
             )
         return self
 
+    @model_validator(mode="after")
+    def _balance_roles(self) -> Spec:
+        model, bal = self.model, self.balance
+        structural = {model.outcome, *model.endogenous, *model.instruments}
+        for key in ("covariates", "pre_treatment", "placebo_outcomes"):
+            for name in getattr(bal, key) or []:
+                if name in structural:
+                    raise ValueError(
+                        f"balance.{key} lists '{name}', which is the outcome, an endogenous "
+                        "regressor or an instrument; balance variables must be other columns"
+                    )
+        for name in bal.cut_points:
+            if name not in model.instruments:
+                raise ValueError(
+                    f"balance.cut_points names '{name}', which is not in model.instruments"
+                )
+        return self
+
     @property
     def covariance(self) -> Covariance:
         """The covariance actually used, after the default rule is applied."""
@@ -256,5 +310,7 @@ class Spec(_Strict):
     def resolved(self) -> Spec:
         """A copy with every default made explicit (written to the bundle)."""
         return self.model_copy(
-            update={"inference": self.inference.model_copy(update={"covariance": self.covariance})}
+            update={
+                "inference": self.inference.model_copy(update={"covariance": self.covariance}),
+            }
         )
