@@ -164,6 +164,34 @@ def check(spec: Annotated[Path, typer.Argument(help="The spec file (YAML).")]) -
 
 
 @app.command()
+def new(
+    datafile: Annotated[
+        Path, typer.Argument(help="The data file (.csv, .tsv, .parquet, .dta, .sav).")
+    ],
+    output: Annotated[
+        Path | None,
+        typer.Option(
+            "--output", "-o", help="Spec file to write (default: DATAFILE's name with .yaml)."
+        ),
+    ] = None,
+    overwrite: Annotated[bool, typer.Option(help="Replace an existing spec file.")] = False,
+) -> None:
+    """Write a starter spec for DATAFILE: its columns listed, the model left for you to fill in."""
+    from reportkit.starter import write_starter
+
+    try:
+        written = write_starter(datafile, output=output, overwrite=overwrite)
+    except ReportkitError as err:
+        _fail(err)
+        return
+    typer.echo(f"starter spec written to {written}")
+    typer.echo(
+        "next: edit the model section (it is commented out; the column list under it "
+        f"guesses each column's role), then run: reportkit check {written}"
+    )
+
+
+@app.command()
 def verify(
     bundle: Annotated[Path, typer.Argument(help="The bundle folder that 'reportkit run' wrote.")],
     data: Annotated[
