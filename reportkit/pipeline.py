@@ -13,6 +13,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from importlib import metadata
 
+from reportkit.disclosures import build_disclosures
 from reportkit.engine.crosscheck import CrossCheckRow
 from reportkit.results import (
     CrossCheck,
@@ -121,23 +122,24 @@ def run_analysis(
         crosschecks = est.crosschecks
     else:
         crosschecks = [_crosscheck(row) for row in est.crosschecks]
+    description = ModelDescription(
+        outcome=model.outcome,
+        endogenous=list(model.endogenous),
+        instruments=list(model.instruments),
+        controls=list(design.control_names),
+        fixed_effects=list(model.fixed_effects),
+        cluster_by=list(model.cluster_by),
+        weights=model.weights,
+        labels=labels,
+        n_instruments=len(model.instruments),
+        n_endogenous=len(model.endogenous),
+        overidentification_degree=len(model.instruments) - len(model.endogenous),
+    )
     return StudyResults(
         study=StudyInfo(
             title=spec.study.title, authors=list(spec.study.authors), summary=spec.study.summary
         ),
-        model=ModelDescription(
-            outcome=model.outcome,
-            endogenous=list(model.endogenous),
-            instruments=list(model.instruments),
-            controls=list(design.control_names),
-            fixed_effects=list(model.fixed_effects),
-            cluster_by=list(model.cluster_by),
-            weights=model.weights,
-            labels=labels,
-            n_instruments=len(model.instruments),
-            n_endogenous=len(model.endogenous),
-            overidentification_degree=len(model.instruments) - len(model.endogenous),
-        ),
+        model=description,
         conventions=est.conventions,
         sample=prepared.sample,
         estimates=est.estimates,
@@ -148,6 +150,14 @@ def run_analysis(
         strength=est.strength,
         weak_iv=est.weak_iv,
         balance=balance,
+        disclosures=build_disclosures(
+            spec.assumptions,
+            model=description,
+            strength=est.strength,
+            weak_iv=est.weak_iv,
+            diagnostics=est.diagnostics,
+            balance=balance,
+        ),
         provenance=Provenance(
             inputs=sorted(
                 [*prepared.inputs, *(extra_inputs or [])], key=lambda f: (f.role, f.name)

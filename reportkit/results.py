@@ -14,7 +14,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 
-SCHEMA_VERSION = "1.2.0"
+SCHEMA_VERSION = "1.3.0"
 
 
 class _Frozen(BaseModel):
@@ -457,6 +457,36 @@ class Balance(_Frozen):
     conditioning: str = Field(description="What the conditional regressions hold fixed.")
 
 
+# --- disclosures of untestable assumptions -------------------------------------------
+
+
+class EvidenceLink(_Frozen):
+    """A section of this appendix that bears on an assumption, and how."""
+
+    section_id: str
+    text: str
+
+
+class AssumptionDisclosure(_Frozen):
+    key: str = Field(
+        description="relevance, independence, exclusion_restriction, monotonicity, or additional-N"
+    )
+    name: str
+    statement: str = Field(description="What the assumption says, in plain words.")
+    testable: Literal["no", "partly", "yes"]
+    testable_why: str
+    evidence: list[EvidenceLink]
+    argument: str | None = Field(description="The authors' argument verbatim; None if missing.")
+    references: list[str]
+
+
+class Disclosures(_Frozen):
+    items: list[AssumptionDisclosure]
+    stated: int = Field(description="Assumptions with an argument from the authors.")
+    total: int
+    cautions: list[str]
+
+
 class StudyInfo(_Frozen):
     title: str
     authors: list[str]
@@ -481,6 +511,7 @@ class StudyResults(_Frozen):
     strength: Strength
     weak_iv: WeakIVRobust | NotApplicable
     balance: Balance | NotApplicable
+    disclosures: Disclosures
     provenance: Provenance
 
     def to_json(self) -> str:

@@ -12,6 +12,8 @@ covariance, and NotApplicable entries where a cluster covariance rules a statist
 The strength and weak-instrument-robust parts are kept consistent with the first stage and
 the 2SLS estimate (see ``example_strength`` and ``example_weak_iv``). The balance part
 (``example_balance``) is illustrative too: the lottery looks balanced, the distance less so.
+The disclosures are built by ``reportkit.disclosures.build_disclosures`` from
+``example_assumptions`` (invented arguments; monotonicity has none).
 """
 
 from __future__ import annotations
@@ -20,6 +22,7 @@ import hashlib
 import math
 from typing import Any
 
+from reportkit.disclosures import build_disclosures
 from reportkit.results import (
     Balance,
     BalanceCell,
@@ -63,6 +66,7 @@ from reportkit.results import (
     TFResult,
     WeakIVRobust,
 )
+from reportkit.spec.models import Argument, AssumptionsSection
 
 Z_95 = 1.959963984540054
 CLUSTER_COV = "cluster-robust, by school (61 clusters)"
@@ -358,7 +362,36 @@ def example_results(**overrides: Any) -> StudyResults:
         ),
     }
     parts.update(overrides)
+    if "disclosures" not in parts:
+        parts["disclosures"] = build_disclosures(
+            example_assumptions(),
+            model=parts["model"],
+            strength=parts["strength"],
+            weak_iv=parts["weak_iv"],
+            diagnostics=parts["diagnostics"],
+            balance=parts["balance"],
+        )
     return StudyResults(**parts)
+
+
+def example_assumptions() -> AssumptionsSection:
+    """Illustrative arguments for three assumptions; monotonicity is left without one."""
+    return AssumptionsSection(
+        relevance=Argument(
+            argument="Winning a voucher makes tutoring free, and a shorter trip makes it easier "
+            "to attend."
+        ),
+        independence=Argument(
+            argument="The voucher lottery was drawn by the pilot's office among all applicants; "
+            "distance is argued to be unrelated to ability once district and prior scores are "
+            "held fixed.",
+            references=["Pilot operations manual (invented), section 2"],
+        ),
+        exclusion_restriction=Argument(
+            argument="A voucher can only be spent on tutoring hours, and distance to a centre "
+            "matters for schooling only through attendance.",
+        ),
+    )
 
 
 def example_strength() -> Strength:

@@ -23,6 +23,7 @@ import jinja2
 
 from reportkit.report import formatting, wording
 from reportkit.report.balance_sections import balance_glance, balance_view
+from reportkit.report.disclosure_sections import disclosures_view
 from reportkit.report.figures import (
     BALANCE_KEY,
     ESTIMATOR_ORDER,
@@ -358,6 +359,9 @@ def build_context(
         "balance_caution": wording.BALANCE_CAUTION,
         "placebo_caution": wording.PLACEBO_CAUTION,
         "std_difference_band": wording.STD_DIFFERENCE_BAND_TEXT,
+        "disclosures_view": disclosures_view(
+            results.disclosures, {s.id: s.title for s in SECTIONS}
+        ),
         "balance_figure": (
             figures[BALANCE_KEY] if BALANCE_KEY in expected_figures(results) else None
         ),

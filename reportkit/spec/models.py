@@ -212,6 +212,45 @@ class BalanceSection(_Strict):
         return v
 
 
+class Argument(_Strict):
+    """The authors' own argument for one identifying assumption, quoted verbatim."""
+
+    argument: str = Field(min_length=1, description="The argument, in the authors' words.")
+    references: list[str] = Field(
+        default_factory=list, description="Works the argument relies on (free text)."
+    )
+
+
+class AdditionalAssumption(Argument):
+    name: str = Field(min_length=1, description="A short name for the assumption.")
+
+
+class AssumptionsSection(_Strict):
+    """The authors' arguments for the assumptions no data can fully test.
+
+    A missing argument is shown as missing in the appendix and counted on its front page.
+    """
+
+    relevance: Argument | None = None
+    independence: Argument | None = Field(
+        default=None, description="Why the instruments are as good as randomly assigned."
+    )
+    exclusion_restriction: Argument | None = Field(
+        default=None, description="Why the instruments affect the outcome only through treatment."
+    )
+    monotonicity: Argument | None = Field(
+        default=None, description="Why no unit's treatment moves against the instrument."
+    )
+    late_claimed: bool = Field(
+        default=True,
+        description="Whether the estimate is read as a local average treatment effect for "
+        "compliers; monotonicity is then an identifying assumption.",
+    )
+    additional: list[AdditionalAssumption] = Field(
+        default_factory=list, description="Further assumptions the authors rely on."
+    )
+
+
 class InferenceSection(_Strict):
     """How uncertainty is measured."""
 
@@ -257,6 +296,7 @@ class Spec(_Strict):
     )
     inference: InferenceSection = Field(default_factory=InferenceSection)
     balance: BalanceSection = Field(default_factory=BalanceSection)
+    assumptions: AssumptionsSection = Field(default_factory=AssumptionsSection)
     run: RunSection = Field(default_factory=RunSection)
 
     @field_validator("estimators")
