@@ -19,6 +19,7 @@ from reportkit.checks.overid import hansen_j, sargan
 from reportkit.checks.overid_extra import basmann, c_statistics
 from reportkit.checks.strength import instrument_strength
 from reportkit.checks.weak_iv import weak_iv_inference
+from reportkit.coefficients import coefficient_rows
 from reportkit.engine.covariance import CovarianceSpec
 from reportkit.engine.crosscheck import CrossCheckRow, run_crosscheck, should_run
 from reportkit.engine.design import Design
@@ -27,7 +28,6 @@ from reportkit.engine.firststage import LinearFit, binned_first_stage, fit_on_in
 from reportkit.engine.moments import Moments, compute_moments
 from reportkit.results import (
     BinnedScatter,
-    Coefficient,
     Conventions,
     Diagnostics,
     EstimatorResult,
@@ -62,30 +62,6 @@ class EstimationOutput:
 
 def _label(name: str, labels: dict[str, str]) -> str:
     return labels.get(name, name)
-
-
-def _coefficients(
-    fit: EstimateArrays, names: tuple[str, ...], labels: dict[str, str], level: float
-) -> list[Coefficient]:
-    zcrit = float(stats.norm.ppf(0.5 + level / 2))
-    se = np.sqrt(np.diag(fit.cov))
-    out = []
-    for j, name in enumerate(names):
-        est, s = float(fit.params[j]), float(se[j])
-        zstat = est / s
-        out.append(
-            Coefficient(
-                name=name,
-                label=_label(name, labels),
-                estimate=est,
-                std_error=s,
-                statistic=zstat,
-                p_value=float(2 * stats.norm.sf(abs(zstat))),
-                ci_lower=est - zcrit * s,
-                ci_upper=est + zcrit * s,
-            )
-        )
-    return out
 
 
 def _sign(x: float) -> str:
@@ -144,7 +120,7 @@ def estimate(
         EstimatorResult(
             estimator=name,  # type: ignore[arg-type]
             label=ESTIMATOR_LABELS[name],
-            coefficients=_coefficients(fit, design.endog_names, labels, confidence_level),
+            coefficients=coefficient_rows(fit, design.endog_names, labels, confidence_level),
             kappa=fit.kappa,
             n_obs=design.n,
             df_model=fit.k,

@@ -13,10 +13,10 @@ consistent with it but proves nothing. Common practice in applied work; no singl
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from reportkit.balance.regression import Regression, coefficients, joint_test, regress
 from reportkit.balance.rows import select_rows
+from reportkit.coefficients import coefficient_rows
 from reportkit.engine.covariance import CovType
 from reportkit.engine.design import Design
 from reportkit.engine.estimators import EstimateArrays, tsls
@@ -27,28 +27,10 @@ def tsls_coefficients(
     fit: EstimateArrays, names: tuple[str, ...], labels: dict[str, str], level: float
 ) -> list[Coefficient] | None:
     """2SLS coefficients with normal intervals at ``level``; None when not finite."""
-    zcrit = float(stats.norm.ppf(0.5 + level / 2))
     diag = np.diag(fit.cov)
     if not (np.all(np.isfinite(fit.params)) and np.all(np.isfinite(diag)) and np.all(diag > 0)):
         return None
-    se = np.sqrt(diag)
-    out = []
-    for j, name in enumerate(names):
-        est, s = float(fit.params[j]), float(se[j])
-        z = est / s
-        out.append(
-            Coefficient(
-                name=name,
-                label=labels.get(name, name),
-                estimate=est,
-                std_error=s,
-                statistic=z,
-                p_value=float(2 * stats.norm.sf(abs(z))),
-                ci_lower=est - zcrit * s,
-                ci_upper=est + zcrit * s,
-            )
-        )
-    return out
+    return coefficient_rows(fit, tuple(names), labels, level)
 
 
 def placebo_result(
