@@ -116,6 +116,9 @@ def estimate(
     )
     cov_label = cov.describe(design.cluster_names)
     fits = {name: ESTIMATOR_FUNCTIONS[name](m, cov) for name in estimators}
+    # two-step GMM is fitted for Hansen's J even when it is not among the reported estimators
+    gmm_fit = fits["gmm"] if "gmm" in fits else ESTIMATOR_FUNCTIONS["gmm"](m, cov)
+    j_test = hansen_j(m, gmm_fit, covariance, cov_label)
     estimates = [
         EstimatorResult(
             estimator=name,  # type: ignore[arg-type]
@@ -126,7 +129,7 @@ def estimate(
             df_model=fit.k,
             covariance=cov_label,
             sigma=fit.sigma,
-            hansen_j=hansen_j(m, fit, covariance, cov_label) if name == "gmm" else None,
+            hansen_j=j_test if name == "gmm" else None,
         )
         for name, fit in fits.items()
     ]
@@ -144,11 +147,10 @@ def estimate(
             ratio.append(float(fits["2sls"].params[j] / fits["ols"].params[j]))
         else:
             ratio.append(None)
-    gmm_fit = fits["gmm"] if "gmm" in fits else ESTIMATOR_FUNCTIONS["gmm"](m, cov)
     diagnostics = Diagnostics(
         sargan=sargan(m, tsls_params),
         basmann=basmann(m, tsls_params),
-        hansen_j=hansen_j(m, gmm_fit, covariance, cov_label),
+        hansen_j=j_test,
         instrument_validity=c_statistics(m, cov, cov_label, design.instrument_names, labels),
         endogeneity=durbin_wu_hausman(m, cov, cov_label),
     )

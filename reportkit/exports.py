@@ -118,62 +118,70 @@ def _f3(x: float) -> str:
     return f"{x:.3f}"
 
 
-def estimates_latex(results: StudyResults) -> str:
-    """A tabular environment: one column per estimator, SE in parentheses below."""
-    ests = results.estimates
+def _row(label: str, cells: list[str]) -> str:
+    return label + " & " + " & ".join(cells) + " \\\\"
+
+
+def _latex_table(
+    what: str,
+    headers: list[str],
+    coefficient_rows: list[tuple[str, list[tuple[float, float]]]],
+    footer_rows: list[tuple[str, list[str]]],
+) -> str:
+    """A tabular: one column per header, each coefficient with its SE in parentheses below."""
     lines = [
-        "% Main estimates written by reportkit; standard errors in parentheses.",
-        "\\begin{tabular}{l" + "c" * len(ests) + "}",
+        f"% {what} written by reportkit; standard errors in parentheses.",
+        "\\begin{tabular}{l" + "c" * len(headers) + "}",
         "\\hline",
-        " & " + " & ".join(latex_escape(e.label) for e in ests) + " \\\\",
+        _row("", [latex_escape(h) for h in headers]),
         "\\hline",
     ]
-    for j, name in enumerate(results.model.endogenous):
-        label = latex_escape(results.model.labels.get(name, name))
-        lines.append(
-            label + " & " + " & ".join(_f3(e.coefficients[j].estimate) for e in ests) + " \\\\"
-        )
-        lines.append(
-            " & " + " & ".join(f"({_f3(e.coefficients[j].std_error)})" for e in ests) + " \\\\"
-        )
+    for label, cells in coefficient_rows:
+        lines.append(_row(latex_escape(label), [_f3(est) for est, _ in cells]))
+        lines.append(_row("", [f"({_f3(se)})" for _, se in cells]))
     lines.append("\\hline")
-    lines.append(
-        "Observations & " + " & ".join(f"{e.n_obs:,}".replace(",", "{,}") for e in ests) + " \\\\"
-    )
-    lines.append("\\hline")
-    lines.append("\\end{tabular}")
+    lines += [_row(label, cells) for label, cells in footer_rows]
+    lines += ["\\hline", "\\end{tabular}"]
     return "\n".join(lines) + "\n"
+
+
+def estimates_latex(results: StudyResults) -> str:
+    """One column per estimator, SE in parentheses below."""
+    ests = results.estimates
+    labels = results.model.labels
+    return _latex_table(
+        "Main estimates",
+        [e.label for e in ests],
+        [
+            (
+                labels.get(name, name),
+                [(e.coefficients[j].estimate, e.coefficients[j].std_error) for e in ests],
+            )
+            for j, name in enumerate(results.model.endogenous)
+        ],
+        [("Observations", [f"{e.n_obs:,}".replace(",", "{,}") for e in ests])],
+    )
 
 
 def first_stage_latex(results: StudyResults) -> str:
+    """One column per endogenous regressor, instrument coefficients with SE below."""
     fss = results.first_stages
-    lines = [
-        "% First stages written by reportkit; standard errors in parentheses.",
-        "\\begin{tabular}{l" + "c" * len(fss) + "}",
-        "\\hline",
-        " & "
-        + " & ".join(
-            latex_escape(results.model.labels.get(f.endogenous, f.endogenous)) for f in fss
-        )
-        + " \\\\",
-        "\\hline",
-    ]
-    for i, name in enumerate(results.model.instruments):
-        label = latex_escape(results.model.labels.get(name, name))
-        lines.append(
-            label + " & " + " & ".join(_f3(f.coefficients[i].estimate) for f in fss) + " \\\\"
-        )
-        lines.append(
-            " & " + " & ".join(f"({_f3(f.coefficients[i].std_error)})" for f in fss) + " \\\\"
-        )
-    lines.append("\\hline")
-    lines.append("Partial $R^2$ & " + " & ".join(_f3(f.partial_r2) for f in fss) + " \\\\")
-    lines.append(
-        "F (main covariance) & " + " & ".join(f"{f.f_main.statistic:.2f}" for f in fss) + " \\\\"
+    labels = results.model.labels
+    return _latex_table(
+        "First stages",
+        [labels.get(f.endogenous, f.endogenous) for f in fss],
+        [
+            (
+                labels.get(name, name),
+                [(f.coefficients[i].estimate, f.coefficients[i].std_error) for f in fss],
+            )
+            for i, name in enumerate(results.model.instruments)
+        ],
+        [
+            ("Partial $R^2$", [_f3(f.partial_r2) for f in fss]),
+            ("F (main covariance)", [f"{f.f_main.statistic:.2f}" for f in fss]),
+        ],
     )
-    lines.append("\\hline")
-    lines.append("\\end{tabular}")
-    return "\n".join(lines) + "\n"
 
 
 def table_files(results: StudyResults) -> dict[str, str]:

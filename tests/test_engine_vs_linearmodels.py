@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from helpers_design import reference_columns
 from linearmodels.iv import IV2SLS, IVGMM, IVLIML
 
 from reportkit.engine.covariance import CovarianceSpec
@@ -72,14 +73,7 @@ def make_design(
 
 def full_exog(d: Design) -> pd.DataFrame:
     """Constant, controls and fixed-effect dummies (first level dropped) as columns."""
-    cols = {"const": np.ones(d.n)}
-    for j in range(d.controls.shape[1]):
-        cols[f"c{j}"] = d.controls[:, j]
-    for j in range(d.fixed_effects.shape[1]):
-        codes = d.fixed_effects[:, j]
-        for level in np.unique(codes)[1:]:
-            cols[f"fe{j}_{level}"] = (codes == level).astype(float)
-    return pd.DataFrame(cols)
+    return reference_columns(d).exog
 
 
 def reference_fit(d: Design, estimator: str, kind: str):  # type: ignore[no-untyped-def]

@@ -37,6 +37,7 @@ import scipy.linalg
 from scipy import stats
 
 from reportkit.checks.effective_f import effective_f
+from reportkit.checks.stock_yogo import stock_yogo_table
 from reportkit.engine.covariance import CovarianceSpec
 from reportkit.engine.firststage import fit_on_instruments
 from reportkit.engine.moments import Moments
@@ -284,12 +285,6 @@ def _scores(z: np.ndarray, e: np.ndarray) -> np.ndarray:
 def _stock_yogo(
     m: Moments, cd: Statistic, cov: CovarianceSpec
 ) -> CriticalValueTable | NotApplicable:
-    try:
-        from reportkit.checks.stock_yogo import stock_yogo_table
-    except ModuleNotFoundError as exc:  # the table module ships separately
-        if exc.name != "reportkit.checks.stock_yogo":
-            raise
-        return NotApplicable(reason="the Stock-Yogo critical-value tables are not installed")
     table = stock_yogo_table(m.p, m.q, cd.value, cd.name)
     if isinstance(table, CriticalValueTable) and cov.kind != "classical":
         extra = (

@@ -28,6 +28,8 @@ from typing import Literal
 import numpy as np
 import scipy.linalg
 
+from reportkit.engine.absorb import fixed_effect_absorber
+
 TOLERANCE = 1e-9  # relative residual norm below which a column counts as dependent
 PARTNER_SHARE = 1e-6  # a column takes part in a combination if it carries this share of it
 MAP_TOLERANCE = 1e-12  # convergence of alternating projections, on columns of unit scale
@@ -66,16 +68,7 @@ class Absorber:
         self._algorithm = None
         self.rank = 1
         if fixed_effects.shape[1] > 0:
-            import pyhdfe  # imported here: loads scipy.sparse, only needed with fixed effects
-
-            several = fixed_effects.shape[1] > 1
-            self._algorithm = pyhdfe.create(
-                fixed_effects,
-                drop_singletons=False,
-                compute_degrees=True,
-                residualize_method="map" if several else "within",
-                options={"tol": MAP_TOLERANCE} if several else None,
-            )
+            self._algorithm = fixed_effect_absorber(fixed_effects, tolerance=MAP_TOLERANCE)
             self.rank = int(self._algorithm.degrees)
 
     @property

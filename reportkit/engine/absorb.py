@@ -78,6 +78,23 @@ class Partialler:
         return np.asarray(self.absorber.residualize(m, **kwargs), dtype=float)  # type: ignore[attr-defined]
 
 
+def fixed_effect_absorber(codes: np.ndarray, tolerance: float = MAP_TOLERANCE) -> object:
+    """pyhdfe's absorber for integer fixed-effect codes (singletons already removed).
+
+    Within transformation for one dimension, alternating projections for several
+    (Guimaraes & Portugal 2010); ``degrees`` is the columns the effects use up.
+    """
+    import pyhdfe
+
+    several = codes.shape[1] > 1
+    return pyhdfe.create(
+        codes,
+        drop_singletons=False,
+        residualize_method="map" if several else "within",
+        options={"tol": tolerance, "iteration_limit": MAP_ITERATION_LIMIT} if several else None,
+    )
+
+
 def normalised_weights(weights: np.ndarray | None) -> np.ndarray | None:
     """Weights scaled to mean one (the convention of linearmodels; scale-free results)."""
     if weights is None:
@@ -101,18 +118,7 @@ def build_partialler(design: Design, collinear_tol: float = 1e-9) -> Partialler:
     absorber = None
     fe_df = 0
     if design.fixed_effects.shape[1]:
-        import pyhdfe
-
-        method = "within" if design.fixed_effects.shape[1] == 1 else "map"
-        options = None
-        if method == "map":
-            options = {"tol": MAP_TOLERANCE, "iteration_limit": MAP_ITERATION_LIMIT}
-        absorber = pyhdfe.create(
-            design.fixed_effects,
-            drop_singletons=False,
-            residualize_method=method,
-            options=options,
-        )
+        absorber = fixed_effect_absorber(design.fixed_effects)
         fe_df = int(absorber.degrees)
         if int(getattr(absorber, "singletons", 0) or 0):
             # pyhdfe's degrees leave out singleton levels; the data stage must drop them
