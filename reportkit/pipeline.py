@@ -150,6 +150,7 @@ def run_analysis(
         strength=est.strength,
         weak_iv=est.weak_iv,
         balance=balance,
+        robustness=NotApplicable(reason="robustness variants are not computed yet"),
         disclosures=build_disclosures(
             spec.assumptions,
             model=description,

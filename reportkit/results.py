@@ -14,7 +14,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 
-SCHEMA_VERSION = "1.3.0"
+SCHEMA_VERSION = "1.4.0"
 
 
 class _Frozen(BaseModel):
@@ -34,7 +34,7 @@ class TestResult(_Frozen):
     kind: Literal["test"] = "test"
     name: str
     statistic: float
-    distribution: Literal["chi2", "F", "normal", "conditional"]
+    distribution: Literal["chi2", "F", "normal", "conditional", "bootstrap"]
     df: list[float] = Field(description="Degrees of freedom (one for chi2, two for F).")
     p_value: float
     covariance: str = Field(description="Covariance the statistic was computed with.")
@@ -448,6 +448,103 @@ class PlaceboResult(_Frozen):
     tsls: list[Coefficient] | NotApplicable
 
 
+class FalsificationFirstStage(_Frozen):
+    """First stage of one endogenous regressor in a falsification subsample."""
+
+    endogenous: str
+    label: str
+    coefficients: list[InstrumentCoefficient]
+    joint_test: TestOrNA
+
+
+class FalsificationResult(_Frozen):
+    """Rows where the instruments should not move the treatment: first stage and reduced
+    form there. A reduced form far from zero where the first stage is zero is evidence
+    against the exclusion restriction."""
+
+    name: str
+    description: str
+    rows: list[str] = Field(description="The subsample's filters in words.")
+    n_used: int
+    first_stages: list[FalsificationFirstStage] | NotApplicable
+    reduced_form: list[InstrumentCoefficient] | NotApplicable
+    reduced_form_test: TestOrNA
+    covariance: str
+
+
+class ComplierShares(_Frozen):
+    """Shares of compliers, always-takers and never-takers (binary instrument and treatment,
+    monotonicity assumed; Imbens & Angrist 1994)."""
+
+    compliers: float
+    compliers_se: float | None = Field(description="Bootstrap standard error.")
+    always_takers: float = Field(description="Share treated with the instrument off.")
+    never_takers: float = Field(description="Share untreated with the instrument on.")
+    treated_share_on: float
+    treated_share_off: float
+    n_on: int
+    n_off: int
+
+
+class ComplierMean(_Frozen):
+    """Mean of a covariate among compliers (Abadie 2003 kappa weights) and other types."""
+
+    covariate: str
+    label: str
+    full_sample: float | None
+    compliers: float | None
+    compliers_se: float | None = Field(description="Bootstrap standard error.")
+    always_takers: float | None
+    never_takers: float | None
+
+
+class DensityBin(_Frozen):
+    """One outcome bin: the implied complier probability mass, treated and untreated.
+
+    treated = P(Y in bin, D=1 | Z=1) - P(Y in bin, D=1 | Z=0); untreated =
+    P(Y in bin, D=0 | Z=0) - P(Y in bin, D=0 | Z=1). Under the LATE assumptions both are
+    the compliers' share times their outcome probability in the bin, so never negative.
+    """
+
+    lower: float
+    upper: float
+    treated: float
+    treated_low: float
+    treated_high: float
+    untreated: float
+    untreated_low: float
+    untreated_high: float
+
+
+class LateImplication(_Frozen):
+    """The testable implication of the LATE assumptions for a binary treatment."""
+
+    outcome: str
+    label: str
+    bins: list[DensityBin]
+    band_level: float = Field(description="Coverage of each bin's bootstrap band.")
+    negative_bins: int = Field(description="Bins whose band lies wholly below zero.")
+    test: TestOrNA = Field(description="Kitagawa (2015) variance-weighted test.")
+    draws: int
+    seed: int
+
+
+class ComplierAnalysis(_Frozen):
+    """Who are the compliers? Binary instrument, binary treatment."""
+
+    instrument: str
+    instrument_label: str
+    treatment: str = Field(description="The binary treatment's definition, e.g. 'hours > 0'.")
+    treatment_label: str
+    n_used: int
+    shares: ComplierShares
+    means: list[ComplierMean]
+    late_implication: LateImplication | NotApplicable
+    conditioning: str = Field(description="What the computation conditions on, in words.")
+    draws: int
+    seed: int
+
+
 class Balance(_Frozen):
     rows: list[BalanceRow]
     joint: list[JointBalance]
@@ -455,6 +552,129 @@ class Balance(_Frozen):
     placebo: list[PlaceboResult]
     covariance: str
     conditioning: str = Field(description="What the conditional regressions hold fixed.")
+    falsification: list[FalsificationResult] = Field(default_factory=list)
+    compliers: ComplierAnalysis | NotApplicable | None = Field(
+        default=None, description="None when the spec defines no binary treatment."
+    )
+
+
+# --- robustness variants and sensitivity ---------------------------------------------
+
+
+class VariantValue(_Frozen):
+    """One variant's estimate of one quantity."""
+
+    quantity: str = Field(description="The endogenous regressor, or e.g. 'average partial effect'.")
+    estimate: float
+    std_error: float | None
+    ci_lower: float | None
+    ci_upper: float | None
+    p_value: float | None
+
+
+VariantGroup = Literal["estimator", "instruments", "inference", "sample", "controls", "binary"]
+
+
+class Variant(_Frozen):
+    """A variant of the main estimate: another estimator, instrument set, inference,
+    sample or control set, or a model for a binary outcome."""
+
+    key: str = Field(description="Stable identifier, e.g. 'estimator:liml'.")
+    group: VariantGroup
+    name: str
+    description: str
+    estimand: str = Field(description="What the number estimates, in words.")
+    n_obs: int | None
+    covariance: str
+    values: list[VariantValue] | NotApplicable
+
+
+class ClusterDrop(_Frozen):
+    """The estimate with one cluster left out."""
+
+    cluster: str
+    n_rows: int
+    estimate: float
+    shift: float = Field(description="Estimate without the cluster minus the full-sample one.")
+    std_error: float
+    significant: bool = Field(description="Whether the interval without it excludes zero.")
+
+
+class ClusterInfluence(_Frozen):
+    """Leave-one-cluster-out influence (how much hinges on single clusters; Young 2022)."""
+
+    endogenous: str
+    label: str
+    cluster_variable: str
+    n_clusters: int
+    drops: list[ClusterDrop] = Field(description="Every cluster, largest |shift| first.")
+    lowest: float
+    highest: float
+    significance_changes: int = Field(
+        description="Clusters whose removal changes whether the interval excludes zero."
+    )
+
+
+class WildBootstrapResult(_Frozen):
+    """Restricted wild (cluster) bootstrap p-value of the 2SLS t test of beta = 0."""
+
+    endogenous: str
+    label: str
+    t_statistic: float
+    p_value: float
+    draws: int
+    weights: str
+    level: Literal["cluster", "observation"]
+    clusters: int | None
+    seed: int
+    reference: str = "Davidson & MacKinnon 2010"
+
+
+class DirectEffectSensitivity(_Frozen):
+    """The allowed direct effect of one instrument and the breakdown value."""
+
+    instrument: str
+    label: str
+    lower: float
+    upper: float
+    prior_mean: float
+    prior_sd: float
+    breakdown: float | None = Field(
+        description="Smallest direct effect (in absolute value, this instrument alone) at "
+        "which the interval first covers zero; None if not within 100 times the range."
+    )
+
+
+class SensitivityPoint(_Frozen):
+    instrument: str
+    gamma: float
+    estimate: float
+    ci_lower: float
+    ci_upper: float
+
+
+class ExclusionSensitivity(_Frozen):
+    """Conley, Hansen & Rossi (2012): inference when the exclusion restriction holds only
+    approximately."""
+
+    endogenous: str
+    label: str
+    ranges: list[DirectEffectSensitivity]
+    union_interval: Interval
+    local_to_zero: Interval
+    local_to_zero_estimate: float
+    curve: list[SensitivityPoint]
+    covariance: str
+    level: float
+    reference: str = "Conley, Hansen & Rossi 2012"
+
+
+class Robustness(_Frozen):
+    main: list[VariantValue] = Field(description="The main 2SLS estimate, for comparison.")
+    variants: list[Variant]
+    cluster_influence: list[ClusterInfluence] | NotApplicable
+    wild_bootstrap: list[WildBootstrapResult] | NotApplicable
+    sensitivity: list[ExclusionSensitivity] | NotApplicable
 
 
 # --- disclosures of untestable assumptions -------------------------------------------
@@ -511,6 +731,7 @@ class StudyResults(_Frozen):
     strength: Strength
     weak_iv: WeakIVRobust | NotApplicable
     balance: Balance | NotApplicable
+    robustness: Robustness | NotApplicable
     disclosures: Disclosures
     provenance: Provenance
 

@@ -361,6 +361,9 @@ def example_results(**overrides: Any) -> StudyResults:
             ],
         ),
     }
+    parts.setdefault(
+        "robustness", NotApplicable(reason="robustness variants are not part of this example")
+    )
     parts.update(overrides)
     if "disclosures" not in parts:
         parts["disclosures"] = build_disclosures(

@@ -311,7 +311,7 @@ def test_unknown_top_level_key_suggests_the_nearest(tmp_path: Path) -> None:
     assert "unknown key 'estimatrs'; did you mean 'estimators'?" in err.message
     assert (
         "Allowed top-level keys: study, data, model, estimators, inference, balance, "
-        "assumptions, run." in err.message
+        "robustness, sensitivity, assumptions, run." in err.message
     )
 
 

@@ -105,6 +105,27 @@ class DataSection(_Strict):
     )
 
 
+class BinaryTreatment(_Strict):
+    """A binary version of the (single) endogenous regressor.
+
+    Either a 0/1 or true/false column (``column`` alone), or a threshold on a numeric
+    column: treated when ``column`` is greater than ``treated_above``. Used by the complier
+    analysis and by the bivariate probit, which need a treatment that is on or off.
+    """
+
+    column: ColumnName = Field(description="A 0/1 or true/false column, or a numeric one.")
+    treated_above: float | None = Field(
+        default=None,
+        description="Treated when the column is greater than this value (e.g. 0 for 'any "
+        "hours'); omit when the column is already 0/1 or true/false.",
+    )
+
+    def describe(self) -> str:
+        if self.treated_above is None:
+            return self.column
+        return f"{self.column} > {self.treated_above:g}"
+
+
 class ModelSection(_Strict):
     """The structural equation and the instrument set.
 
@@ -138,6 +159,11 @@ class ModelSection(_Strict):
     )
     labels: dict[str, str] = Field(
         default_factory=dict, description="Readable labels for column names in the appendix."
+    )
+    binary_treatment: BinaryTreatment | None = Field(
+        default=None,
+        description="A binary version of the endogenous regressor, for the complier analysis "
+        "and the bivariate probit (one endogenous regressor only).",
     )
 
     @model_validator(mode="after")
@@ -175,7 +201,35 @@ class ModelSection(_Strict):
             )
         if len(set(self.cluster_by)) != len(self.cluster_by):
             raise ValueError("model.cluster_by lists the same variable twice")
+        if self.binary_treatment is not None and len(self.endogenous) != 1:
+            raise ValueError(
+                "model.binary_treatment needs exactly one endogenous regressor; remove it or "
+                "list one variable in model.endogenous"
+            )
         return self
+
+
+class Subsample(_Strict):
+    """A named set of rows, chosen by structured filters (never code)."""
+
+    name: str = Field(min_length=1, description="A short name, shown in tables.")
+    description: str = Field(default="", description="Why these rows, in a sentence.")
+    filters: list[RowFilter] = Field(min_length=1, description="Row filters, applied in order.")
+
+
+class CompliersSection(_Strict):
+    """Settings of the complier analysis (binary instrument and binary treatment)."""
+
+    instrument: ColumnName | None = Field(
+        default=None,
+        description="The binary instrument to use; default: the only 0/1 instrument.",
+    )
+    outcome_bins: int = Field(
+        default=12, ge=2, le=100, description="Bins of the outcome for the implied densities."
+    )
+    draws: int = Field(
+        default=499, ge=99, le=9999, description="Bootstrap draws for bands and the test."
+    )
 
 
 class BalanceSection(_Strict):
@@ -200,6 +254,15 @@ class BalanceSection(_Strict):
         description="Group boundaries per continuous instrument for the table of means "
         "(default: quartiles). A binary instrument is grouped by its two values.",
     )
+    falsification: list[Subsample] = Field(
+        default_factory=list,
+        description="Rows of the file where the instruments should not move the treatment; "
+        "their filters replace data.filters. First stage and reduced form are shown there.",
+    )
+    compliers: CompliersSection = Field(
+        default_factory=CompliersSection,
+        description="Complier analysis settings; it runs when model.binary_treatment is given.",
+    )
 
     @field_validator("cut_points")
     @classmethod
@@ -210,6 +273,130 @@ class BalanceSection(_Strict):
             if any(b <= a for a, b in itertools.pairwise(points)):
                 raise ValueError(f"balance.cut_points.{name} must be strictly increasing")
         return v
+
+
+VariantEstimator = Literal["liml", "fuller_1", "fuller_4", "gmm", "jive"]
+VARIANT_ESTIMATORS: tuple[str, ...] = get_args(VariantEstimator)
+BinaryModel = Literal["control_function_probit", "2sri_probit", "2sri_logit", "bivariate_probit"]
+BINARY_MODELS: tuple[str, ...] = get_args(BinaryModel)
+
+
+class ControlVariant(_Strict):
+    """The main model with some controls added or removed."""
+
+    name: str = Field(min_length=1)
+    add: list[ColumnName] = Field(default_factory=list, description="Numeric controls to add.")
+    remove: list[ColumnName] = Field(
+        default_factory=list, description="Controls (or categorical controls) to remove."
+    )
+
+    @model_validator(mode="after")
+    def _changes_something(self) -> ControlVariant:
+        if not self.add and not self.remove:
+            raise ValueError(f"control variant '{self.name}' neither adds nor removes a control")
+        return self
+
+
+class WildBootstrapSection(_Strict):
+    """Restricted wild (cluster) bootstrap of the 2SLS t test (Davidson & MacKinnon 2010)."""
+
+    draws: int = Field(default=999, ge=99, le=99_999)
+    weights: Literal["rademacher", "webb"] = Field(
+        default="rademacher",
+        description="Draw distribution: rademacher (+1/-1) or webb (six points; better with "
+        "fewer than about 12 clusters).",
+    )
+
+
+class BinaryOutcomeSection(_Strict):
+    """Nonlinear models for a binary outcome, compared with linear 2SLS on the same outcome."""
+
+    outcome: ColumnName = Field(description="A 0/1 or true/false outcome column.")
+    models: list[BinaryModel] = Field(default_factory=lambda: list(BINARY_MODELS), min_length=1)
+    bootstrap_draws: int = Field(default=199, ge=49, le=9999)
+
+
+class RobustnessSection(_Strict):
+    """Variants of the main 2SLS estimate, each compared with it in one table and plot."""
+
+    estimators: list[VariantEstimator] = Field(
+        default_factory=lambda: list(VARIANT_ESTIMATORS),
+        description="Other estimators: " + ", ".join(VARIANT_ESTIMATORS),
+    )
+    instrument_sets: bool = Field(
+        default=True, description="Each instrument alone, and each one left out."
+    )
+    alternative_clusters: list[list[ColumnName]] = Field(
+        default_factory=list,
+        description="Other cluster variables (one or two each) for the main 2SLS estimate.",
+    )
+    cluster_influence: bool = Field(
+        default=True, description="Re-estimate leaving out one cluster at a time."
+    )
+    wild_bootstrap: WildBootstrapSection | None = Field(
+        default_factory=WildBootstrapSection,
+        description="Wild bootstrap of the 2SLS t test; null to skip.",
+    )
+    samples: list[Subsample] = Field(
+        default_factory=list,
+        description="Sample variants: their filters are applied after data.filters.",
+    )
+    control_sets: list[ControlVariant] = Field(default_factory=list)
+    trim_outcome: list[float] = Field(
+        default_factory=list,
+        description="Shares of rows trimmed from each tail of the outcome (e.g. 0.01).",
+    )
+    binary_outcome: BinaryOutcomeSection | None = None
+
+    @field_validator("trim_outcome")
+    @classmethod
+    def _trim_shares(cls, v: list[float]) -> list[float]:
+        for t in v:
+            if not 0 < t < 0.25:
+                raise ValueError("robustness.trim_outcome shares must be between 0 and 0.25")
+        return v
+
+    @field_validator("alternative_clusters")
+    @classmethod
+    def _cluster_sets(cls, v: list[list[str]]) -> list[list[str]]:
+        for names in v:
+            if not 1 <= len(names) <= 2 or len(set(names)) != len(names):
+                raise ValueError(
+                    "each entry of robustness.alternative_clusters lists one or two "
+                    "different variables"
+                )
+        return v
+
+
+class DirectEffectRange(_Strict):
+    """A range of direct effects of one instrument on the outcome (Conley, Hansen & Rossi
+    2012): gamma in [lower, upper]; for the local-to-zero approximation gamma is taken as
+    normal with ``prior_mean`` and ``prior_sd`` (defaults: the midpoint and a quarter of
+    the width, so that the range is about +/- 2 standard deviations)."""
+
+    lower: float
+    upper: float
+    prior_mean: float | None = None
+    prior_sd: float | None = Field(default=None, gt=0)
+
+    @model_validator(mode="after")
+    def _ordered(self) -> DirectEffectRange:
+        if self.upper < self.lower:
+            raise ValueError("upper must be at least lower")
+        if self.upper == self.lower and self.prior_sd is None:
+            raise ValueError("a single value needs prior_sd for the local-to-zero approximation")
+        return self
+
+
+class SensitivitySection(_Strict):
+    """How far the exclusion restriction may fail before the conclusion changes."""
+
+    direct_effects: dict[str, DirectEffectRange] = Field(
+        default_factory=dict,
+        description="For each instrument, the range of direct effects on the outcome (in "
+        "outcome units per unit of the instrument) to allow.",
+    )
+    grid_points: int = Field(default=41, ge=5, le=1001)
 
 
 class Argument(_Strict):
@@ -283,6 +470,14 @@ class RunSection(_Strict):
     )
 
 
+def _unique_names(where: str, names: list[str]) -> None:
+    seen: set[str] = set()
+    for name in names:
+        if name in seen:
+            raise ValueError(f"{where} uses the name '{name}' twice; names must differ")
+        seen.add(name)
+
+
 class Spec(_Strict):
     """A complete reportkit specification."""
 
@@ -296,6 +491,8 @@ class Spec(_Strict):
     )
     inference: InferenceSection = Field(default_factory=InferenceSection)
     balance: BalanceSection = Field(default_factory=BalanceSection)
+    robustness: RobustnessSection = Field(default_factory=RobustnessSection)
+    sensitivity: SensitivitySection = Field(default_factory=SensitivitySection)
     assumptions: AssumptionsSection = Field(default_factory=AssumptionsSection)
     run: RunSection = Field(default_factory=RunSection)
 
@@ -338,6 +535,45 @@ class Spec(_Strict):
                 raise ValueError(
                     f"balance.cut_points names '{name}', which is not in model.instruments"
                 )
+        chosen = bal.compliers.instrument
+        if chosen is not None and chosen not in model.instruments:
+            raise ValueError(
+                f"balance.compliers.instrument is '{chosen}', which is not in model.instruments"
+            )
+        _unique_names("balance.falsification", [f.name for f in bal.falsification])
+        return self
+
+    @model_validator(mode="after")
+    def _robustness_roles(self) -> Spec:
+        model, rob = self.model, self.robustness
+        _unique_names("robustness.samples", [f.name for f in rob.samples])
+        _unique_names("robustness.control_sets", [c.name for c in rob.control_sets])
+        current = set(model.controls) | set(model.categorical_controls)
+        structural = {model.outcome, *model.endogenous, *model.instruments}
+        for variant in rob.control_sets:
+            for name in variant.remove:
+                if name not in current:
+                    raise ValueError(
+                        f"control variant '{variant.name}' removes '{name}', which is not in "
+                        "model.controls or model.categorical_controls"
+                    )
+            for name in variant.add:
+                if name in current or name in structural or name in model.fixed_effects:
+                    raise ValueError(
+                        f"control variant '{variant.name}' adds '{name}', which the model "
+                        "already uses"
+                    )
+        for name in self.sensitivity.direct_effects:
+            if name not in model.instruments:
+                raise ValueError(
+                    f"sensitivity.direct_effects names '{name}', which is not in model.instruments"
+                )
+        binary = rob.binary_outcome
+        if binary is not None and binary.outcome in structural - {model.outcome}:
+            raise ValueError(
+                f"robustness.binary_outcome.outcome is '{binary.outcome}', an endogenous "
+                "regressor or instrument; name a 0/1 outcome column"
+            )
         return self
 
     @property
