@@ -70,7 +70,7 @@ def balance_checks(
             reason="there are no balance covariates and no placebo outcomes: the model has "
             "no numeric controls and the spec's balance section names none"
         )
-    columns = {name: _column(design, extras, name) for name in [*variables, *placebos]}
+    columns = {name: balance_column(design, extras, name) for name in [*variables, *placebos]}
     controls = {*design.control_names, *model_controls}
     groupings = [
         instrument_groups(
@@ -131,7 +131,7 @@ def _covariance_kind(covariance: str) -> CovType:
     return covariance  # type: ignore[return-value]
 
 
-def _column(design: Design, extras: Mapping[str, np.ndarray], name: str) -> np.ndarray:
+def balance_column(design: Design, extras: Mapping[str, np.ndarray], name: str) -> np.ndarray:
     """The balance column as float with NaN where missing (non-finite counts as missing)."""
     if name in extras:
         values = np.asarray(extras[name], dtype=float)

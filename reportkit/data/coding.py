@@ -24,6 +24,7 @@ ROLE_WORDS: dict[str, str] = {
     "controls": "a control",
     "weights": "the weights",
     "balance": "a balance or placebo variable",
+    "binary": "a binary treatment or outcome",
 }
 
 

@@ -34,7 +34,7 @@ from reportkit.data.missing import drop_missing, replace_missing_codes
 from reportkit.data.readers import check_source, read_table
 from reportkit.data.screening import Columns, screen_columns
 from reportkit.data.singletons import singleton_rows
-from reportkit.data.values import format_value
+from reportkit.data.values import format_level, format_value
 from reportkit.engine.design import Design
 from reportkit.errors import DataError
 from reportkit.results import CodingNote, InputFile, SampleAccount, SampleStep
@@ -54,6 +54,8 @@ class PreparedData:
     # balance and placebo columns on the estimation sample (float, NaN where missing; their
     # own missing values do not remove rows from the sample)
     extras: dict[str, np.ndarray] = field(default_factory=dict)
+    # the file's value of each cluster code, per cluster variable (for naming clusters)
+    cluster_levels: list[list[str]] = field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -104,7 +106,30 @@ def balance_variables(spec: Spec) -> list[Variable]:
         Variable(name, "balance", ("balance", "placebo_outcomes", i))
         for i, name in enumerate(spec.balance.placebo_outcomes)
     ]
+    treatment = spec.model.binary_treatment
+    if treatment is not None and treatment.column not in spec.model.endogenous:
+        out.append(Variable(treatment.column, "binary", ("model", "binary_treatment", "column")))
+    binary = spec.robustness.binary_outcome
+    if binary is not None and binary.outcome != spec.model.outcome:
+        out.append(Variable(binary.outcome, "binary", ("robustness", "binary_outcome", "outcome")))
     return out
+
+
+@dataclass(frozen=True)
+class Source:
+    """The data file read once: its digest and its raw table (shared by variant samples)."""
+
+    digest: InputFile
+    frame: pd.DataFrame
+    file_name: str
+
+
+def read_source(loaded: LoadedSpec) -> Source:
+    """Checksum and read the spec's data file (DataError naming the file on failure)."""
+    path = loaded.resolve_path(loaded.spec.data.path)
+    digest = _checked_digest(loaded, path)
+    frame = read_table(path, loaded.where(("data", "path")))
+    return Source(digest=digest, frame=frame, file_name=path.name)
 
 
 def _shown_name(loaded: LoadedSpec, path: Path) -> str:
@@ -275,15 +300,17 @@ def _cluster_counts(frame: pd.DataFrame, clusters: np.ndarray, loaded: LoadedSpe
     return counts
 
 
-def prepare(loaded: LoadedSpec) -> PreparedData:
+def prepare(loaded: LoadedSpec, source: Source | None = None) -> PreparedData:
     """Build the estimation sample of ``loaded`` and describe how it was built.
 
-    Raises ``DataError`` (exit code 2) with the file, field or column and what to do.
+    ``source`` is the file already read (variants and subsamples re-use it; the frame is
+    not modified). Raises ``DataError`` (exit code 2) with the file, field or column and
+    what to do.
     """
     spec, model = loaded.spec, loaded.spec.model
-    path = loaded.resolve_path(spec.data.path)
-    digest = _checked_digest(loaded, path)
-    frame = read_table(path, loaded.where(("data", "path")))
+    source = source if source is not None else read_source(loaded)
+    digest, frame, file_name = source.digest, source.frame, source.file_name
+    path = Path(file_name)
     rows_read = len(frame)
     frame_columns = [str(c) for c in frame.columns]
     if rows_read == 0:
@@ -391,7 +418,7 @@ def prepare(loaded: LoadedSpec) -> PreparedData:
     for variable in extra_variables:
         if variable.column not in extras:
             values, _ = numeric_column(
-                frame[variable.column], variable.column, "balance", loaded.where(variable.field)
+                frame[variable.column], variable.column, variable.role, loaded.where(variable.field)
             )
             extras[variable.column] = np.ascontiguousarray(values, dtype=float)
     return PreparedData(
@@ -401,4 +428,7 @@ def prepare(loaded: LoadedSpec) -> PreparedData:
         frame_columns=frame_columns,
         row_positions=frame.index.to_numpy(dtype=np.int64),
         extras=extras,
+        cluster_levels=[
+            [format_level(v) for v in integer_codes(frame[name])[1]] for name in model.cluster_by
+        ],
     )
