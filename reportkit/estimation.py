@@ -58,6 +58,8 @@ class EstimationOutput:
     fits: dict[str, EstimateArrays]
     strength: Strength
     weak_iv: WeakIVRobust | NotApplicable
+    moments: Moments
+    cov: CovarianceSpec
 
 
 def _label(name: str, labels: dict[str, str]) -> str:
@@ -193,6 +195,8 @@ def estimate(
         fits=fits,
         strength=strength,
         weak_iv=weak_iv,
+        moments=m,
+        cov=cov,
     )
 
 

@@ -1,0 +1,1 @@
+"""Robustness variants of the main estimate and sensitivity analyses."""
