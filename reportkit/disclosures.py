@@ -26,9 +26,11 @@ from typing import Literal
 from reportkit.results import (
     AssumptionDisclosure,
     Balance,
+    ComplierAnalysis,
     Diagnostics,
     Disclosures,
     EvidenceLink,
+    LateImplication,
     ModelDescription,
     NotApplicable,
     Strength,
@@ -44,6 +46,11 @@ BALANCE_ID = "as-good-as-random"
 SPECIFICATION_TESTS_ID = "specification-tests"
 # Every section id a disclosure may link to.
 EVIDENCE_SECTION_IDS = (FIRST_STAGE_ID, STRENGTH_ID, WEAK_IV_ID, BALANCE_ID, SPECIFICATION_TESTS_ID)
+# Subsections of the balance section a disclosure may link to (the anchors of
+# ``reportkit.report.balance_sections``, repeated here; a test checks they stay in step).
+FALSIFICATION_ID = "falsification-subsamples"
+COMPLIERS_ID = "compliers"
+EVIDENCE_SUBSECTION_IDS = (FALSIFICATION_ID, COMPLIERS_ID)
 
 NOT_PROOF_CAUTION = (
     "The diagnostics in this appendix cannot establish that an instrument is valid. They are "
@@ -96,7 +103,7 @@ def build_disclosures(
         _exclusion(assumptions.exclusion_restriction, words, diagnostics, balance),
     ]
     if assumptions.late_claimed:
-        items.append(_monotonicity(assumptions.monotonicity, words))
+        items.append(_monotonicity(assumptions.monotonicity, words, balance))
     for number, extra in enumerate(assumptions.additional, start=1):
         items.append(
             _disclosure(
@@ -291,6 +298,16 @@ def _exclusion(
                 "independence); no effect does not establish it.",
             )
         )
+    if isinstance(balance, Balance) and balance.falsification:
+        subsamples = _count(len(balance.falsification), "falsification subsample")
+        evidence.append(
+            EvidenceLink(
+                section_id=FALSIFICATION_ID,
+                text=f"{subsamples} of rows where the instruments should not move "
+                f"{words.endogenous}: there, a reduced form far from zero is evidence against "
+                "the exclusion restriction; one near zero does not establish it.",
+            )
+        )
     return _disclosure(
         "exclusion_restriction",
         "Exclusion restriction",
@@ -307,7 +324,40 @@ def _exclusion(
     )
 
 
-def _monotonicity(argument: Argument | None, words: _Words) -> AssumptionDisclosure:
+def _monotonicity(
+    argument: Argument | None, words: _Words, balance: Balance | NotApplicable
+) -> AssumptionDisclosure:
+    why = (
+        "It concerns how each unit would respond to other instrument values, which "
+        "is never observed. It has testable implications in some designs (for a binary "
+        "treatment, e.g. Kitagawa 2015), but they are not checked in this appendix yet."
+    )
+    evidence: list[EvidenceLink] = []
+    compliers = balance.compliers if isinstance(balance, Balance) else None
+    if isinstance(compliers, ComplierAnalysis):
+        implication = compliers.late_implication
+        text = (
+            "Shares of compliers, always-takers and never-takers (which describe groups of "
+            "units only under monotonicity)"
+        )
+        if isinstance(implication, LateImplication):
+            text += (
+                " and the testable implication of the LATE assumptions (Kitagawa 2015): "
+                "negative implied complier masses would count against monotonicity, exclusion "
+                "or independence, while finding none does not establish monotonicity."
+            )
+            why = (
+                "It concerns how each unit would respond to other instrument values, which "
+                "is never observed. For a binary treatment and instrument it has a testable "
+                "implication (Kitagawa 2015), checked in this appendix: some violations break "
+                "it, but passing does not establish monotonicity."
+            )
+        else:
+            text += (
+                "; the testable implication of the LATE assumptions could not be checked "
+                f"({implication.reason.rstrip('.')})."
+            )
+        evidence.append(EvidenceLink(section_id=COMPLIERS_ID, text=text))
     return _disclosure(
         "monotonicity",
         "Monotonicity",
@@ -317,12 +367,8 @@ def _monotonicity(argument: Argument | None, words: _Words) -> AssumptionDisclos
             "other way (no defiers)."
         ),
         testable="no",
-        why=(
-            "It concerns how each unit would respond to other instrument values, which "
-            "is never observed. It has testable implications in some designs (for a binary "
-            "treatment, e.g. Kitagawa 2015), but they are not checked in this appendix yet."
-        ),
-        evidence=[],
+        why=why,
+        evidence=evidence,
         argument=argument,
     )
 

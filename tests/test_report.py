@@ -54,6 +54,7 @@ EXPECTED_TITLES = [
     "Inference that stays valid with weak instruments",
     "Is the instrument as good as random?",
     "Specification tests",
+    "How much does the answer move?",
     "What the data cannot tell you",
     "Provenance",
 ]

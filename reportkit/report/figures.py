@@ -648,6 +648,16 @@ def make_figures(results: StudyResults) -> dict[str, FigureImage]:
     balance = results.balance
     if isinstance(balance, Balance) and has_balance_figure(balance):
         figures[BALANCE_KEY] = balance_figure(balance, labels)
+    # Imported here: complier_figures draws with this module's helpers.
+    from reportkit.report.complier_figures import complier_figure
+
+    complier = complier_figure(balance)
+    if complier is not None:
+        figures[complier.key] = complier
+    # Imported here: robustness_figures draws with this module's helpers.
+    from reportkit.report.robustness_figures import robustness_figures
+
+    figures.update(robustness_figures(results))
     return figures
 
 

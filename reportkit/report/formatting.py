@@ -43,6 +43,7 @@ _DISTRIBUTION_NAMES = {
     "F": "F",
     "normal": "standard normal",
     "conditional": "conditional on Q_T (Moreira 2003), q =",
+    "bootstrap": "bootstrap",
 }
 
 
@@ -179,7 +180,7 @@ def fmt_df(df: Sequence[float]) -> str:
 def fmt_distribution(test: TestResult) -> str:
     """The reference distribution with its degrees of freedom: "F, 2 and 60 df"."""
     name = _DISTRIBUTION_NAMES[test.distribution]
-    if test.distribution == "normal":
+    if test.distribution in ("normal", "bootstrap"):
         return name
     if test.distribution == "conditional":
         return f"{name} {and_join(fmt_df([d]) for d in test.df)}"

@@ -22,7 +22,8 @@ from typing import Any, Protocol
 import jinja2
 
 from reportkit.report import formatting, wording
-from reportkit.report.balance_sections import balance_glance, balance_view
+from reportkit.report.balance_sections import SUBSECTION_TITLES, balance_glance, balance_view
+from reportkit.report.complier_figures import COMPLIER_MASSES_KEY, has_complier_figure
 from reportkit.report.disclosure_sections import disclosures_view
 from reportkit.report.figures import (
     BALANCE_KEY,
@@ -32,6 +33,8 @@ from reportkit.report.figures import (
     first_stage_key,
     has_balance_figure,
 )
+from reportkit.report.robustness_figures import robustness_figure_keys
+from reportkit.report.robustness_sections import robustness_view
 from reportkit.report.strength_sections import (
     glance_interval,
     strength_blocks,
@@ -118,6 +121,7 @@ SECTIONS: tuple[Section, ...] = (
         "sections/as_good_as_random.html.j2",
     ),
     Section("specification-tests", "Specification tests", "sections/specification_tests.html.j2"),
+    Section("robustness", "How much does the answer move?", "sections/robustness.html.j2"),
     Section("cannot-tell", "What the data cannot tell you", "sections/cannot_tell.html.j2"),
     Section("provenance", "Provenance", "sections/provenance.html.j2"),
 )
@@ -270,6 +274,9 @@ def expected_figures(results: StudyResults) -> list[str]:
         keys.append(P_VALUE_CURVE_KEY)
     if has_balance_figure(results.balance):
         keys.append(BALANCE_KEY)
+    if has_complier_figure(results.balance):
+        keys.append(COMPLIER_MASSES_KEY)
+    keys += robustness_figure_keys(results)
     return keys
 
 
@@ -295,6 +302,7 @@ def build_context(
     )
     return {
         "results": results,
+        "robustness_view": robustness_view(results, alpha, figures),
         "run": run,
         "sections": SECTIONS,
         "level": formatting.fmt_pct(results.conventions.confidence_level),
@@ -360,10 +368,13 @@ def build_context(
         "placebo_caution": wording.PLACEBO_CAUTION,
         "std_difference_band": wording.STD_DIFFERENCE_BAND_TEXT,
         "disclosures_view": disclosures_view(
-            results.disclosures, {s.id: s.title for s in SECTIONS}
+            results.disclosures, {**{s.id: s.title for s in SECTIONS}, **SUBSECTION_TITLES}
         ),
         "balance_figure": (
             figures[BALANCE_KEY] if BALANCE_KEY in expected_figures(results) else None
+        ),
+        "complier_figure": (
+            figures[COMPLIER_MASSES_KEY] if has_complier_figure(results.balance) else None
         ),
     }
 
