@@ -10,7 +10,7 @@ from __future__ import annotations
 import csv
 import io
 
-from reportkit.results import StudyResults
+from reportkit.results import NotApplicable, StudyResults
 
 LATEX_SPECIAL = {
     "\\": r"\textbackslash{}",
@@ -184,6 +184,80 @@ def first_stage_latex(results: StudyResults) -> str:
     )
 
 
+def _num(x: float | None) -> str:
+    return "" if x is None else repr(x)
+
+
+def variants_csv(results: StudyResults) -> str:
+    """Every robustness variant, one row per variant and quantity (the main 2SLS first)."""
+    rows: list[list[object]] = [
+        [
+            "key",
+            "group",
+            "variant",
+            "quantity",
+            "estimate",
+            "std_error",
+            "ci_lower",
+            "ci_upper",
+            "p_value",
+            "n_obs",
+            "estimand",
+            "covariance",
+            "not_applicable_reason",
+        ]
+    ]
+    rob = results.robustness
+    if isinstance(rob, NotApplicable):
+        return _csv(rows)
+    main_n = results.sample.rows_used
+    for v in rob.main:
+        rows.append(
+            ["main:2sls", "main", "2SLS (main)", v.quantity, repr(v.estimate), _num(v.std_error),
+             _num(v.ci_lower), _num(v.ci_upper), _num(v.p_value), main_n, "coefficient",
+             results.conventions.covariance_description, ""]
+        )  # fmt: skip
+    for variant in rob.variants:
+        common = [variant.key, variant.group, variant.name]
+        if isinstance(variant.values, NotApplicable):
+            rows.append(
+                [*common, "", "", "", "", "", "", variant.n_obs or "", variant.estimand,
+                 variant.covariance, variant.values.reason]
+            )  # fmt: skip
+            continue
+        for v in variant.values:
+            rows.append(
+                [*common, v.quantity, repr(v.estimate), _num(v.std_error), _num(v.ci_lower),
+                 _num(v.ci_upper), _num(v.p_value), variant.n_obs or "", variant.estimand,
+                 variant.covariance, ""]
+            )  # fmt: skip
+    return _csv(rows)
+
+
+def variants_latex(results: StudyResults) -> str:
+    """Rows: the main 2SLS and each variant; columns: one per endogenous regressor."""
+    rob = results.robustness
+    labels = results.model.labels
+    names = results.model.endogenous
+    headers = [labels.get(n, n) for n in names]
+    if isinstance(rob, NotApplicable):
+        return f"% Robustness variants not computed: {rob.reason}\n"
+    coefficient_rows: list[tuple[str, list[tuple[float, float]]]] = [
+        ("2SLS (main)", [(v.estimate, v.std_error or float("nan")) for v in rob.main])
+    ]
+    notes: list[tuple[str, list[str]]] = []
+    for variant in rob.variants:
+        values = variant.values
+        linear = not isinstance(values, NotApplicable) and [v.quantity for v in values] == names
+        if linear and not isinstance(values, NotApplicable):
+            coefficient_rows.append(
+                (variant.name, [(v.estimate, v.std_error or float("nan")) for v in values])
+            )
+        elif isinstance(values, NotApplicable):
+            notes.append((latex_escape(variant.name), ["n/a"] * len(names)))
+    return _latex_table("Robustness variants (linear models)", headers, coefficient_rows, notes)
+
+
 def table_files(results: StudyResults) -> dict[str, str]:
     """File name (under tables/) -> content."""
     return {
@@ -191,4 +265,6 @@ def table_files(results: StudyResults) -> dict[str, str]:
         "estimates.tex": estimates_latex(results),
         "first_stage.csv": first_stage_csv(results),
         "first_stage.tex": first_stage_latex(results),
+        "variants.csv": variants_csv(results),
+        "variants.tex": variants_latex(results),
     }

@@ -16,7 +16,10 @@ from importlib import metadata
 from reportkit.disclosures import build_disclosures
 from reportkit.engine.crosscheck import CrossCheckRow
 from reportkit.results import (
+    Balance,
+    ComplierAnalysis,
     CrossCheck,
+    FalsificationResult,
     InputFile,
     ModelDescription,
     NotApplicable,
@@ -80,14 +83,24 @@ def run_analysis(
     from threadpoolctl import threadpool_limits
 
     from reportkit.balance import balance_checks
-    from reportkit.data.prepare import prepare
+    from reportkit.balance.checks import balance_column
+    from reportkit.balance.complier_inputs import compliers_part
+    from reportkit.balance.falsification import falsification_result
+    from reportkit.data.binary import binary_outcome, binary_treatment
+    from reportkit.data.named_columns import check_named_columns
+    from reportkit.data.prepare import prepare, read_source
     from reportkit.estimation import estimate
+    from reportkit.variants.runner import BinaryInputs, robustness_checks
 
     timings = timings if timings is not None else Timings()
     spec = loaded.spec.resolved()
     with threadpool_limits(limits=1):
         with timings.stage("reading and preparing data", progress):
-            prepared = prepare(loaded)
+            source = read_source(loaded)
+            prepared = prepare(loaded, source)
+            check_named_columns(loaded, prepared.frame_columns, source.file_name)
+            treatment = binary_treatment(prepared, loaded)
+            outcome_bin = binary_outcome(prepared, loaded)
         labels = with_indicator_labels(dict(spec.model.labels), prepared.design.control_names)
         with timings.stage("estimation and tests", progress):
             est = estimate(
@@ -98,15 +111,16 @@ def run_analysis(
                 labels=labels,
                 crosscheck=spec.run.crosscheck,
             )
-        with timings.stage("balance and placebo checks", progress):
+        covariates = (
+            list(spec.balance.covariates)
+            if spec.balance.covariates is not None
+            else list(prepared.design.control_names)
+        )
+        with timings.stage("balance, placebo, falsification and complier checks", progress):
             balance = balance_checks(
                 prepared.design,
                 prepared.extras,
-                covariates=(
-                    list(spec.balance.covariates)
-                    if spec.balance.covariates is not None
-                    else list(prepared.design.control_names)
-                ),
+                covariates=covariates,
                 pre_treatment=list(spec.balance.pre_treatment),
                 placebo_outcomes=list(spec.balance.placebo_outcomes),
                 cut_points=dict(spec.balance.cut_points),
@@ -114,6 +128,34 @@ def run_analysis(
                 labels=labels,
                 level=spec.inference.confidence_level,
                 model_controls=list(spec.model.controls),
+            )
+            falsification = [
+                falsification_result(loaded, source, subsample, kind=spec.covariance, labels=labels)
+                for subsample in spec.balance.falsification
+            ]
+            compliers = compliers_part(
+                prepared.design,
+                treatment,
+                {
+                    name: balance_column(prepared.design, prepared.extras, name)
+                    for name in dict.fromkeys([*covariates, *spec.balance.pre_treatment])
+                },
+                spec,
+                labels=labels,
+            )
+            balance = with_evidence(balance, falsification, compliers)
+        with timings.stage("robustness variants and sensitivity", progress):
+            robustness = robustness_checks(
+                loaded,
+                source,
+                prepared,
+                est,
+                BinaryInputs(
+                    outcome=outcome_bin,
+                    treatment=None if treatment is None else treatment[0],
+                    treatment_text="" if treatment is None else treatment[1],
+                ),
+                labels=labels,
             )
     design = prepared.design
     model = spec.model
@@ -150,7 +192,7 @@ def run_analysis(
         strength=est.strength,
         weak_iv=est.weak_iv,
         balance=balance,
-        robustness=NotApplicable(reason="robustness variants are not computed yet"),
+        robustness=robustness,
         disclosures=build_disclosures(
             spec.assumptions,
             model=description,
@@ -169,6 +211,32 @@ def run_analysis(
             crosschecks=crosschecks,
         ),
     )
+
+
+def with_evidence(
+    balance: Balance | NotApplicable,
+    falsification: list[FalsificationResult],
+    compliers: ComplierAnalysis | NotApplicable | None,
+) -> Balance | NotApplicable:
+    """The balance part with the falsification and complier results attached.
+
+    Without balance covariates or placebo outcomes the balance part is otherwise empty;
+    it is still made when there are falsification or complier results to show.
+    """
+    if not falsification and compliers is None:
+        return balance
+    if isinstance(balance, NotApplicable):
+        return Balance(
+            rows=[],
+            joint=[],
+            outcome_index=NotApplicable(reason=balance.reason),
+            placebo=[],
+            covariance="",
+            conditioning="",
+            falsification=falsification,
+            compliers=compliers,
+        )
+    return balance.model_copy(update={"falsification": falsification, "compliers": compliers})
 
 
 def with_indicator_labels(labels: dict[str, str], names: tuple[str, ...]) -> dict[str, str]:

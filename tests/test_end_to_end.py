@@ -11,6 +11,7 @@ import jsonschema
 import pytest
 
 from reportkit import api
+from reportkit import results as rs
 from reportkit.results import StudyResults, json_schema
 
 REPO = Path(__file__).resolve().parents[1]
@@ -25,6 +26,8 @@ BUNDLE_FILES = {
     "tables/estimates.tex",
     "tables/first_stage.csv",
     "tables/first_stage.tex",
+    "tables/variants.csv",
+    "tables/variants.tex",
 }
 
 
@@ -75,6 +78,40 @@ def test_demo_recovers_the_true_effect(demo_bundle: Path) -> None:
 
 
 @pytest.mark.slow
+def test_demo_falsification_compliers_and_variants(demo_bundle: Path) -> None:
+    # Simulation facts of the invented demo (fixtures/demo/make_demo_data.py): the full-day
+    # programme pupils' hours depend on neither instrument; winning the lottery is random,
+    # so the complier share is the first-stage effect of winning on "any tutoring"; every
+    # linear variant keeps the true effect 0.8 inside a 99.9% band of the main estimate.
+    results = StudyResults.from_json((demo_bundle / "results.json").read_text())
+    balance = results.balance
+    assert not isinstance(balance, rs.NotApplicable)
+    (falsification,) = balance.falsification
+    assert falsification.n_used == 480
+    assert not isinstance(falsification.first_stages, rs.NotApplicable)
+    stage_test = falsification.first_stages[0].joint_test
+    assert isinstance(stage_test, rs.TestResult) and stage_test.p_value > 0.05
+    compliers = balance.compliers
+    assert isinstance(compliers, rs.ComplierAnalysis)
+    shares = compliers.shares
+    assert shares.compliers == pytest.approx(shares.treated_share_on - shares.treated_share_off)
+    assert 0.15 < shares.compliers < 0.35 and shares.compliers_se is not None
+    late = compliers.late_implication
+    assert isinstance(late, rs.LateImplication) and late.negative_bins == 0
+    rob = results.robustness
+    assert isinstance(rob, rs.Robustness)
+    keys = {v.key for v in rob.variants}
+    assert {"estimator:liml", "estimator:jive", "inference:cluster:district"} <= keys
+    assert "binary:bivariate_probit" in keys and "sample:trim:0.01" in keys
+    liml = next(v for v in rob.variants if v.key == "estimator:liml")
+    assert isinstance(liml.values, list)
+    assert liml.values[0].estimate == pytest.approx(rob.main[0].estimate, abs=0.05)
+    assert isinstance(rob.wild_bootstrap, list) and rob.wild_bootstrap[0].clusters == 40
+    assert isinstance(rob.sensitivity, list) and rob.sensitivity[0].union_interval.lower is not None
+    assert isinstance(rob.cluster_influence, list) and rob.cluster_influence[0].n_clusters == 40
+
+
+@pytest.mark.slow
 def test_demo_pdf_opens_and_has_sections(demo_bundle: Path) -> None:
     from pypdf import PdfReader
 
@@ -98,7 +135,13 @@ def test_two_runs_are_byte_identical(
     assert (outcome.bundle / "results.json").read_bytes() == (
         demo_bundle / "results.json"
     ).read_bytes()
-    for rel in ("tables/estimates.csv", "tables/first_stage.tex", "figures/estimates-1.svg"):
+    for rel in (
+        "tables/estimates.csv",
+        "tables/first_stage.tex",
+        "tables/variants.csv",
+        "figures/estimates-1.svg",
+        "appendix.html",
+    ):
         assert (outcome.bundle / rel).read_bytes() == (demo_bundle / rel).read_bytes()
 
 

@@ -38,3 +38,38 @@ def test_latex_escapes_text_from_the_spec() -> None:
         results.model_copy(update={}) and results.model_copy(update={"model": model})
     )
     assert r"hours \& \$cost\_1" in tex
+
+
+def test_variants_csv_lists_every_variant_and_reason() -> None:
+    from robustness_example import example_robustness
+
+    from reportkit.exports import variants_csv, variants_latex
+    from reportkit.results import NotApplicable
+
+    results = example_results(robustness=example_robustness())
+    rob = results.robustness
+    assert not isinstance(rob, NotApplicable)
+    rows = list(csv.DictReader(io.StringIO(variants_csv(results))))
+    expected = len(rob.main) + sum(
+        1 if isinstance(v.values, NotApplicable) else len(v.values) for v in rob.variants
+    )
+    assert len(rows) == expected
+    assert rows[0]["key"] == "main:2sls" and float(rows[0]["estimate"]) == rob.main[0].estimate
+    for variant in rob.variants:
+        mine = [r for r in rows if r["key"] == variant.key]
+        if isinstance(variant.values, NotApplicable):
+            assert mine[0]["not_applicable_reason"] == variant.values.reason
+            assert mine[0]["estimate"] == ""
+        else:
+            assert [float(r["estimate"]) for r in mine] == [v.estimate for v in variant.values]
+    tex = variants_latex(results)
+    assert f"{rob.main[0].estimate:.3f}" in tex and "n/a" in tex
+
+
+def test_variants_export_when_not_computed() -> None:
+    from reportkit.exports import variants_csv, variants_latex
+    from reportkit.results import NotApplicable
+
+    results = example_results(robustness=NotApplicable(reason="none asked"))
+    assert variants_csv(results).count("\n") == 1  # the header only
+    assert "none asked" in variants_latex(results)
