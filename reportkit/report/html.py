@@ -33,6 +33,7 @@ from reportkit.report.figures import (
     first_stage_key,
     has_balance_figure,
 )
+from reportkit.report.glance import robustness_glance
 from reportkit.report.robustness_figures import robustness_figure_keys
 from reportkit.report.robustness_sections import robustness_view
 from reportkit.report.strength_sections import (
@@ -364,6 +365,7 @@ def build_context(
         "c_test_caution": wording.C_TEST_CAUTION,
         "balance_view": balance_view(results, alpha),
         "balance_glance": balance_glance(results, alpha),
+        "robustness_glance": robustness_glance(results),
         "balance_caution": wording.BALANCE_CAUTION,
         "placebo_caution": wording.PLACEBO_CAUTION,
         "std_difference_band": wording.STD_DIFFERENCE_BAND_TEXT,
