@@ -156,6 +156,16 @@ def render_files(
 
         with timings.stage("PDF", progress):
             files["appendix.pdf"] = render_pdf(html)
+    from reportkit.replication import REPLICATION_FILE, measure_run_facts, replication_markdown
+
+    facts = measure_run_facts(
+        reportkit_version=__version__,
+        generated_on=date,
+        bundle_name=bundle.name if bundle is not None else "BUNDLE",
+        data_path=spec.data.path,
+        seconds=sum(timings.stages.values()),
+    )
+    files[REPLICATION_FILE] = replication_markdown(results, facts, files).encode()
     return files
 
 

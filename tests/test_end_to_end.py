@@ -22,6 +22,7 @@ BUNDLE_FILES = {
     "results.json",
     "spec.resolved.yaml",
     "manifest.json",
+    "REPLICATION.md",
     "tables/estimates.csv",
     "tables/estimates.tex",
     "tables/first_stage.csv",
