@@ -127,23 +127,26 @@ def test_demo_pdf_opens_and_has_sections(demo_bundle: Path) -> None:
 def test_two_runs_are_byte_identical(
     demo_bundle: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
+    # every file of the bundle, the PDF and the manifest included: same inputs, same bytes
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1767225600")
     loaded = api.load(DEMO_SPEC)
+    # same folder name and command line as the first run (both are shown in the outputs)
     outcome = api.run(
-        loaded, output=tmp_path / "again", command=f"reportkit demo {demo_bundle}", pdf=False
+        loaded,
+        output=tmp_path / demo_bundle.name,
+        command=f"reportkit demo {demo_bundle}",
+        pdf=True,
     )
     assert outcome.bundle is not None
-    assert (outcome.bundle / "results.json").read_bytes() == (
-        demo_bundle / "results.json"
-    ).read_bytes()
-    for rel in (
-        "tables/estimates.csv",
-        "tables/first_stage.tex",
-        "tables/variants.csv",
-        "figures/estimates-1.svg",
-        "appendix.html",
-    ):
-        assert (outcome.bundle / rel).read_bytes() == (demo_bundle / rel).read_bytes()
+    first = {p.relative_to(demo_bundle): p for p in demo_bundle.rglob("*") if p.is_file()}
+    second = {p.relative_to(outcome.bundle): p for p in outcome.bundle.rglob("*") if p.is_file()}
+    assert sorted(first) == sorted(second)
+    differing = [
+        str(rel)
+        for rel, path in sorted(first.items())
+        if path.read_bytes() != second[rel].read_bytes()
+    ]
+    assert not differing, f"files differ between two runs: {differing}"
 
 
 def test_injection_in_title_and_label_is_inert(tmp_path: Path) -> None:
