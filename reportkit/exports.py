@@ -10,7 +10,13 @@ from __future__ import annotations
 import csv
 import io
 
-from reportkit.results import NotApplicable, StudyResults
+from reportkit.report.specification_sections import (
+    Cell,
+    Column,
+    cross_table,
+    table_columns,
+)
+from reportkit.results import ConfidenceSet, NotApplicable, StudyResults, TestOrNA
 
 LATEX_SPECIAL = {
     "\\": r"\textbackslash{}",
@@ -258,6 +264,170 @@ def variants_latex(results: StudyResults) -> str:
     return _latex_table("Robustness variants (linear models)", headers, coefficient_rows, notes)
 
 
+# --- the cross-specification table -------------------------------------------------------
+
+SPECIFICATION_COLUMNS = [
+    "column",
+    "specification",
+    "quantity",
+    "variable",
+    "estimate",
+    "std_error",
+    "ci_lower",
+    "ci_upper",
+    "statistic",
+    "df",
+    "p_value",
+    "n_obs",
+    "covariance",
+    "note",
+]
+
+
+def _bound(x: float | None, infinite: str) -> str:
+    return infinite if x is None else repr(x)
+
+
+def _set_rows(cs: ConfidenceSet | NotApplicable) -> list[tuple[str, str, str]]:
+    """(ci_lower, ci_upper, note) per piece of a confidence set; unbounded ends as -inf/inf."""
+    if isinstance(cs, NotApplicable):
+        return [("", "", cs.reason)]
+    if not cs.pieces:
+        return [("", "", cs.shape)]
+    return [(_bound(p.lower, "-inf"), _bound(p.upper, "inf"), cs.shape) for p in cs.pieces]
+
+
+def _test_row(test: TestOrNA) -> tuple[str, str, str, str]:
+    """(statistic, df, p_value, note) of a test."""
+    if isinstance(test, NotApplicable):
+        return ("", "", "", test.reason)
+    return (repr(test.statistic), ";".join(repr(d) for d in test.df), repr(test.p_value), "")
+
+
+def _column_rows(number: int, column: Column) -> list[list[object]]:
+    lead = [number, column.name]
+    n_obs = "" if column.n_obs is None else column.n_obs
+    if column.reason is not None:
+        return [[*lead, "not estimated", "", "", "", "", "", "", "", "", "", "", column.reason]]
+    rows: list[list[object]] = []
+    for est in column.estimates:
+        for c in est.coefficients:
+            rows.append(
+                [*lead, est.label, c.name, repr(c.estimate), repr(c.std_error), repr(c.ci_lower),
+                 repr(c.ci_upper), repr(c.statistic), "", repr(c.p_value), n_obs, est.covariance,
+                 ""]
+            )  # fmt: skip
+    for s in column.strength:
+        statistic, df, p_value, note = _test_row(s.first_stage_f)
+        rows.append(
+            [*lead, "first-stage F", s.endogenous, "", "", "", "", statistic, df, p_value, n_obs,
+             s.first_stage_f.covariance, note]
+        )  # fmt: skip
+        eff = s.effective_f
+        rows.append(
+            [*lead, "effective F", s.endogenous, "", "", "", "",
+             "" if isinstance(eff, NotApplicable) else repr(eff.value), "", "", n_obs,
+             "" if isinstance(eff, NotApplicable) else eff.covariance,
+             eff.reason if isinstance(eff, NotApplicable) else ""]
+        )  # fmt: skip
+    ar = column.anderson_rubin
+    variable = column.strength[0].endogenous if len(column.strength) == 1 else ""
+    for lower, upper, note in _set_rows(ar):
+        rows.append(
+            [*lead, "Anderson-Rubin set", variable, "", "", lower, upper, "", "", "", n_obs,
+             "" if isinstance(ar, NotApplicable) else ar.covariance, note]
+        )  # fmt: skip
+    for what, test in (("over-identification", column.overid), ("endogeneity", column.endogeneity)):
+        statistic, df, p_value, note = _test_row(test)
+        name = what if isinstance(test, NotApplicable) else f"{what}: {test.name}"
+        covariance = "" if isinstance(test, NotApplicable) else test.covariance
+        rows.append(
+            [*lead, name, "", "", "", "", "", statistic, df, p_value, n_obs, covariance, note]
+        )
+    rows.append([*lead, "rows used", "", "", "", "", "", "", "", "", n_obs, column.covariance, ""])
+    return rows
+
+
+def specifications_csv(results: StudyResults) -> str:
+    """The cross-specification table at full precision: per column (Main first) one row per
+    estimator and coefficient, then its statistics (first-stage and effective F, the
+    Anderson-Rubin set one row per piece, over-identification and endogeneity tests, rows
+    used). Without further specifications only the Main column is written."""
+    rows: list[list[object]] = [list(SPECIFICATION_COLUMNS)]
+    for number, column in enumerate(table_columns(results), start=1):
+        rows += _column_rows(number, column)
+    return _csv(rows)
+
+
+MINUS_INFINITY = r"$-\infty$"
+PLUS_INFINITY = r"$\infty$"
+SET_UNION = r" $\cup$ "
+
+
+def _latex_piece(lower: float | None, upper: float | None) -> str:
+    left = "(" + MINUS_INFINITY if lower is None else "[" + _f3(lower)
+    right = PLUS_INFINITY + ")" if upper is None else _f3(upper) + "]"
+    return f"{left}, {right}"
+
+
+def _latex_cell(cell: Cell) -> str:
+    """One cell of the LaTeX table (an 'estimate' cell's standard error goes on the next line)."""
+    if cell.kind == "estimate" and cell.value is not None:
+        return _f3(cell.value)
+    if cell.kind == "number" and cell.value is not None:
+        return f"{cell.value:.2f}"
+    if cell.kind == "interval" and cell.value is not None and cell.upper is not None:
+        return f"[{_f3(cell.value)}, {_f3(cell.upper)}]"
+    if cell.kind == "p" and cell.value is not None:
+        return "$<$0.001" if cell.value < 0.001 else f"{cell.value:.3f}"
+    if cell.kind == "count" and cell.count is not None:
+        return f"{cell.count:,}".replace(",", "{,}")
+    if cell.kind == "set" and cell.confidence_set is not None:
+        cs = cell.confidence_set
+        if cs.shape in ("whole_line", "empty"):
+            return "all values" if cs.shape == "whole_line" else "empty"
+        return SET_UNION.join(_latex_piece(p.lower, p.upper) for p in cs.pieces)
+    if cell.kind in ("text", "same"):
+        return latex_escape(cell.text)
+    return "n/a"
+
+
+def _standard_errors(cells: tuple[Cell, ...]) -> list[str]:
+    return [
+        f"({_f3(c.std_error)})" if c.kind == "estimate" and c.std_error is not None else ""
+        for c in cells
+    ]
+
+
+def specifications_latex(results: StudyResults) -> str:
+    """The cross-specification table in a paper's layout: one column per specification
+    (Main first), coefficients with standard errors in parentheses below, then the
+    statistics and what each column changes. Reasons for 'n/a' cells are comment lines.
+    Without further specifications only the Main column is written."""
+    table = cross_table(results)
+    k = len(table.columns)
+    lines = [
+        "% Estimates across specifications written by reportkit; standard errors in parentheses.",
+        *(f"% n/a ({note.marker}): {' '.join(note.text.split())}" for note in table.notes),
+        "\\begin{tabular}{l" + "c" * k + "}",
+        "\\hline",
+        _row("", [f"({i})" for i in range(1, k + 1)]),
+        _row("", [latex_escape(name) for name in table.columns]),
+        "\\hline",
+    ]
+    for group in table.groups:
+        if group.key in ("statistics", "settings"):
+            lines.append("\\hline")
+        for i, row in enumerate(group.rows):
+            # a headline group's first row is the coefficient: the group names it
+            title = group.title if group.key.startswith("headline") and i == 0 else row.title
+            lines.append(_row(latex_escape(title), [_latex_cell(c) for c in row.cells]))
+            if any(c.kind == "estimate" for c in row.cells):
+                lines.append(_row("", _standard_errors(row.cells)))
+    lines += ["\\hline", "\\end{tabular}"]
+    return "\n".join(lines) + "\n"
+
+
 def table_files(results: StudyResults) -> dict[str, str]:
     """File name (under tables/) -> content."""
     return {
@@ -267,4 +437,6 @@ def table_files(results: StudyResults) -> dict[str, str]:
         "first_stage.tex": first_stage_latex(results),
         "variants.csv": variants_csv(results),
         "variants.tex": variants_latex(results),
+        "specifications.csv": specifications_csv(results),
+        "specifications.tex": specifications_latex(results),
     }

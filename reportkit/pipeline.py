@@ -24,6 +24,7 @@ from reportkit.results import (
     ModelDescription,
     NotApplicable,
     Provenance,
+    SpecificationResult,
     StudyInfo,
     StudyResults,
 )
@@ -90,6 +91,7 @@ def run_analysis(
     from reportkit.data.named_columns import check_named_columns
     from reportkit.data.prepare import prepare, read_source
     from reportkit.estimation import estimate
+    from reportkit.specifications import run_specifications
     from reportkit.variants.runner import BinaryInputs, robustness_checks
 
     timings = timings if timings is not None else Timings()
@@ -111,6 +113,10 @@ def run_analysis(
                 labels=labels,
                 crosscheck=spec.run.crosscheck,
             )
+        specifications: list[SpecificationResult] = []
+        if spec.specifications:
+            with timings.stage("further specifications", progress):
+                specifications = run_specifications(loaded, source, labels=labels)
         covariates = (
             list(spec.balance.covariates)
             if spec.balance.covariates is not None
@@ -193,6 +199,7 @@ def run_analysis(
         weak_iv=est.weak_iv,
         balance=balance,
         robustness=robustness,
+        specifications=specifications,
         disclosures=build_disclosures(
             spec.assumptions,
             model=description,

@@ -14,7 +14,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 
-SCHEMA_VERSION = "1.4.0"
+SCHEMA_VERSION = "1.5.0"
 
 
 class _Frozen(BaseModel):
@@ -677,6 +677,53 @@ class Robustness(_Frozen):
     sensitivity: list[ExclusionSensitivity] | NotApplicable
 
 
+# --- further specifications (the columns of a paper's main table) --------------------
+
+
+class SpecificationSetting(_Frozen):
+    """One choice of a specification in words, beside the main specification's."""
+
+    part: Literal["endogenous", "instruments", "controls", "fixed_effects", "clusters",
+                  "weights", "covariance", "sample"]  # fmt: skip
+    title: str = Field(description="The choice's name as a row title, e.g. 'Instruments'.")
+    value: str = Field(description="This specification's choice, in words.")
+    main: str = Field(description="The main specification's choice, in words.")
+    changed: bool
+
+
+class SpecificationStrength(_Frozen):
+    """First-stage strength of one endogenous regressor in one specification."""
+
+    endogenous: str
+    label: str
+    first_stage_f: TestResult = Field(description="F on the excluded instruments, main covariance.")
+    effective_f: EffectiveF | NotApplicable
+
+
+class SpecificationResult(_Frozen):
+    """One further specification of the spec (one column of the cross-specification table).
+
+    When its sample cannot support the model, every computed part is ``NotApplicable``
+    with the data stage's explanation and ``n_obs`` is None.
+    """
+
+    name: str
+    description: str
+    changes: list[str] = Field(description="What differs from the main specification, in words.")
+    settings: list[SpecificationSetting]
+    model: ModelDescription
+    covariance_type: Literal["classical", "robust", "cluster"]
+    covariance: str = Field(description="The covariance in words ('' when not computed).")
+    n_obs: int | None
+    estimates: list[EstimatorResult] | NotApplicable
+    strength: list[SpecificationStrength] | NotApplicable
+    verdict: StrengthVerdict | NotApplicable
+    anderson_rubin: SetOrNA
+    sargan: TestOrNA
+    hansen_j: TestOrNA
+    endogeneity: TestOrNA
+
+
 # --- disclosures of untestable assumptions -------------------------------------------
 
 
@@ -732,6 +779,10 @@ class StudyResults(_Frozen):
     weak_iv: WeakIVRobust | NotApplicable
     balance: Balance | NotApplicable
     robustness: Robustness | NotApplicable
+    specifications: list[SpecificationResult] = Field(
+        default_factory=list,
+        description="Further specifications of the spec, in spec order (empty when none).",
+    )
     disclosures: Disclosures
     provenance: Provenance
 

@@ -310,8 +310,8 @@ def test_unknown_top_level_key_suggests_the_nearest(tmp_path: Path) -> None:
     assert err.where == "spec.yaml, line 9, estimatrs"
     assert "unknown key 'estimatrs'; did you mean 'estimators'?" in err.message
     assert (
-        "Allowed top-level keys: study, data, model, estimators, inference, balance, "
-        "robustness, sensitivity, assumptions, run." in err.message
+        "Allowed top-level keys: study, data, model, estimators, inference, specifications, "
+        "balance, robustness, sensitivity, assumptions, run." in err.message
     )
 
 

@@ -1,8 +1,9 @@
 """Check, before any computing, that every column the spec's other sections name exists.
 
-Falsification subsamples, sample variants, control variants and alternative clusters
-each name columns; a typo there is an input error (exit code 2, naming the field and the
-closest column), not a variant shown as "not applicable" at the end of a long run.
+Falsification subsamples, sample variants, control variants, alternative clusters and the
+model parts and filters of further specifications each name columns; a typo there is an
+input error (exit code 2, naming the field and the closest column), not a variant shown
+as "not applicable" at the end of a long run.
 """
 
 from __future__ import annotations
@@ -31,6 +32,16 @@ def named_columns(loaded: LoadedSpec) -> list[tuple[str, FieldPath]]:
         out += [(c, ("robustness", "control_sets", i, "add", j)) for j, c in enumerate(variant.add)]
     for i, names in enumerate(rob.alternative_clusters):
         out += [(c, ("robustness", "alternative_clusters", i, j)) for j, c in enumerate(names)]
+    for i, specification in enumerate(spec.specifications):
+        for key, value in specification.model.replacements().items():
+            if isinstance(value, str):  # the weights column
+                out.append((value, ("specifications", i, "model", key)))
+            elif value is not None:
+                out += [(c, ("specifications", i, "model", key, j)) for j, c in enumerate(value)]
+        out += [
+            (f.column, ("specifications", i, "filters", j, "column"))
+            for j, f in enumerate(specification.filters or [])
+        ]
     return out
 
 

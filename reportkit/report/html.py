@@ -36,6 +36,11 @@ from reportkit.report.figures import (
 from reportkit.report.glance import robustness_glance
 from reportkit.report.robustness_figures import robustness_figure_keys
 from reportkit.report.robustness_sections import robustness_view
+from reportkit.report.specification_sections import (
+    SPECIFICATIONS_SECTION_ID,
+    SPECIFICATIONS_SECTION_TITLE,
+    specifications_view,
+)
 from reportkit.report.strength_sections import (
     glance_interval,
     strength_blocks,
@@ -126,6 +131,20 @@ SECTIONS: tuple[Section, ...] = (
     Section("cannot-tell", "What the data cannot tell you", "sections/cannot_tell.html.j2"),
     Section("provenance", "Provenance", "sections/provenance.html.j2"),
 )
+
+# Shown after "Main estimates" only when the spec defines further specifications.
+SPECIFICATIONS_SECTION = Section(
+    SPECIFICATIONS_SECTION_ID, SPECIFICATIONS_SECTION_TITLE, "sections/specifications.html.j2"
+)
+
+
+def sections_for(results: StudyResults) -> tuple[Section, ...]:
+    """The sections of this appendix, in order: SECTIONS, with "Across specifications"
+    after "Main estimates" when the results hold further specifications."""
+    if not results.specifications:
+        return SECTIONS
+    at = [s.id for s in SECTIONS].index("main-estimates") + 1
+    return (*SECTIONS[:at], SPECIFICATIONS_SECTION, *SECTIONS[at:])
 
 
 @dataclass(frozen=True)
@@ -305,7 +324,8 @@ def build_context(
         "results": results,
         "robustness_view": robustness_view(results, alpha, figures),
         "run": run,
-        "sections": SECTIONS,
+        "sections": sections_for(results),
+        "specifications_view": specifications_view(results),
         "level": formatting.fmt_pct(results.conventions.confidence_level),
         "alpha": alpha,
         "headline": headline_estimate(results),

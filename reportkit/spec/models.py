@@ -10,9 +10,20 @@ only the spec (a variable in two roles, too few instruments) live here.
 from __future__ import annotations
 
 import itertools
-from typing import Annotated, Literal, get_args
+import re
+from typing import Annotated, Any, Literal, get_args
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    SerializerFunctionWrapHandler,
+    ValidationError,
+    ValidationInfo,
+    field_validator,
+    model_serializer,
+    model_validator,
+)
 
 Estimator = Literal["ols", "2sls", "liml", "gmm"]
 Covariance = Literal["classical", "robust", "cluster"]
@@ -207,6 +218,96 @@ class ModelSection(_Strict):
                 "list one variable in model.endogenous"
             )
         return self
+
+
+class ModelOverrides(_Strict):
+    """The parts of the main model one specification replaces; an omitted key keeps the
+    main model's value. The outcome, labels and binary treatment cannot change: every
+    specification explains the same outcome."""
+
+    endogenous: list[ColumnName] | None = Field(default=None, min_length=1)
+    instruments: list[ColumnName] | None = Field(default=None, min_length=1)
+    controls: list[ColumnName] | None = None
+    categorical_controls: list[ColumnName] | None = None
+    fixed_effects: list[ColumnName] | None = None
+    cluster_by: list[ColumnName] | None = Field(default=None, max_length=2)
+    weights: ColumnName | Literal[False] | None = Field(
+        default=None, description="A weights column, or false for no weights."
+    )
+
+    @model_serializer(mode="wrap")
+    def _only_given(self, handler: SerializerFunctionWrapHandler) -> dict[str, Any]:
+        # an omitted key means "as in the main model": leave it out of the resolved spec
+        return {key: value for key, value in handler(self).items() if value is not None}
+
+    def replacements(self) -> dict[str, Any]:
+        """The model fields this specification replaces, with their new values."""
+        out: dict[str, Any] = {}
+        for name in type(self).model_fields:
+            value = getattr(self, name)
+            if value is not None:
+                out[name] = None if value is False else value
+        return out
+
+
+MAIN_SPECIFICATION = "Main"
+
+
+class Specification(_Strict):
+    """One more column of the paper's main table: the main spec with some parts replaced.
+
+    It shares the data, estimators, labels and confidence level with the main spec.
+    """
+
+    name: str = Field(min_length=1, description="Column header; unique, and not 'Main'.")
+    description: str = Field(default="", description="What this column is, in a sentence.")
+    model: ModelOverrides = Field(
+        default_factory=ModelOverrides,
+        description="Model parts to replace: " + ", ".join(ModelOverrides.model_fields),
+    )
+    filters: list[RowFilter] | None = Field(
+        default=None, description="Row filters replacing data.filters for this column."
+    )
+    covariance: Covariance | None = Field(
+        default=None,
+        description="classical, robust or cluster. Default: inference.covariance, or the "
+        "default rule applied to this column's model.",
+    )
+
+    @field_validator("name")
+    @classmethod
+    def _not_main(cls, v: str) -> str:
+        if v.casefold() == MAIN_SPECIFICATION.casefold():
+            raise ValueError(
+                f"'{MAIN_SPECIFICATION}' is the name of the main specification's column; "
+                "give this specification another name"
+            )
+        return v
+
+    @model_validator(mode="after")
+    def _changes_something(self) -> Specification:
+        if not self.model.replacements() and self.filters is None and self.covariance is None:
+            raise ValueError(
+                f"specification '{self.name}' changes nothing; give model, filters or covariance"
+            )
+        return self
+
+    def merged_model(self, main: ModelSection) -> ModelSection:
+        """The main model with this specification's parts replaced, validated as a model.
+
+        The binary treatment is dropped: specifications run no complier analysis.
+        """
+        data = {**main.model_dump(), **self.model.replacements(), "binary_treatment": None}
+        return ModelSection.model_validate(data)
+
+    def resolved_covariance(
+        self, main_choice: Covariance | None, merged: ModelSection
+    ) -> Covariance:
+        """Its own covariance, else the main spec's choice, else the default rule on its model."""
+        choice = self.covariance or main_choice
+        if choice is not None:
+            return choice
+        return "cluster" if merged.cluster_by else "robust"
 
 
 class Subsample(_Strict):
@@ -470,6 +571,26 @@ class RunSection(_Strict):
     )
 
 
+def _check_covariance(
+    where: str, specification: Specification, main_choice: Covariance | None, merged: ModelSection
+) -> None:
+    """A specification's covariance must fit its model's clusters, as the main spec's must."""
+    cov = specification.resolved_covariance(main_choice, merged)
+    source = "" if specification.covariance is not None else " (from inference.covariance)"
+    if cov == "cluster" and not merged.cluster_by:
+        raise ValueError(
+            f"{where}: covariance is 'cluster'{source} but its model has no cluster_by; "
+            "name the cluster variable(s) in its model.cluster_by or set its covariance to "
+            "'robust'"
+        )
+    if cov != "cluster" and merged.cluster_by:
+        raise ValueError(
+            f"{where}: covariance is '{cov}'{source} but its model clusters by "
+            f"{', '.join(merged.cluster_by)}; set cluster_by: [] in its model or choose "
+            "covariance 'cluster'"
+        )
+
+
 def _unique_names(where: str, names: list[str]) -> None:
     seen: set[str] = set()
     for name in names:
@@ -490,6 +611,11 @@ class Spec(_Strict):
         description="Estimators to report, from: " + ", ".join(ESTIMATORS),
     )
     inference: InferenceSection = Field(default_factory=InferenceSection)
+    specifications: list[Specification] = Field(
+        default_factory=list,
+        description="Further columns of the main table: each replaces parts of the model, "
+        "the filters or the covariance; the main specification is the column 'Main'.",
+    )
     balance: BalanceSection = Field(default_factory=BalanceSection)
     robustness: RobustnessSection = Field(default_factory=RobustnessSection)
     sensitivity: SensitivitySection = Field(default_factory=SensitivitySection)
@@ -503,6 +629,29 @@ class Spec(_Strict):
             raise ValueError("an estimator is listed twice")
         # canonical order, so that tables always read OLS, 2SLS, LIML, GMM
         return [e for e in ESTIMATORS if e in v]
+
+    @field_validator("specifications")
+    @classmethod
+    def _specifications_fit(
+        cls, v: list[Specification], info: ValidationInfo
+    ) -> list[Specification]:
+        _unique_names("specifications", [s.name for s in v])
+        model = info.data.get("model")
+        inference = info.data.get("inference")
+        if model is None:  # the main model has its own errors
+            return v
+        for i, specification in enumerate(v):
+            where = f"specifications[{i}] ('{specification.name}')"
+            try:
+                merged = specification.merged_model(model)
+            except ValidationError as exc:
+                problems = "; ".join(
+                    re.sub(r"^Value error, ", "", str(e["msg"])) for e in exc.errors()
+                )
+                raise ValueError(f"{where}: its model is not valid: {problems}") from None
+            if inference is not None:
+                _check_covariance(where, specification, inference.covariance, merged)
+        return v
 
     @model_validator(mode="after")
     def _covariance_needs_clusters(self) -> Spec:
@@ -585,8 +734,43 @@ class Spec(_Strict):
 
     def resolved(self) -> Spec:
         """A copy with every default made explicit (written to the bundle)."""
+        main_choice = self.inference.covariance
+        specifications = [
+            s.model_copy(
+                update={
+                    "covariance": s.resolved_covariance(main_choice, s.merged_model(self.model))
+                }
+            )
+            for s in self.specifications
+        ]
         return self.model_copy(
             update={
                 "inference": self.inference.model_copy(update={"covariance": self.covariance}),
+                "specifications": specifications,
+            }
+        )
+
+    def specification_spec(self, index: int) -> Spec:
+        """The spec of specification ``index`` as a spec of its own, ready for the data stage.
+
+        Its model, filters and covariance replace the main ones; the sections a
+        specification does not run (balance, robustness, sensitivity, other
+        specifications) are reset to defaults that read no extra columns.
+        """
+        specification = self.specifications[index]
+        model = specification.merged_model(self.model)
+        data = self.data
+        if specification.filters is not None:
+            data = data.model_copy(update={"filters": list(specification.filters)})
+        covariance = specification.resolved_covariance(self.inference.covariance, model)
+        return self.model_copy(
+            update={
+                "data": data,
+                "model": model,
+                "inference": self.inference.model_copy(update={"covariance": covariance}),
+                "balance": BalanceSection(covariates=[]),
+                "robustness": RobustnessSection(wild_bootstrap=None),
+                "sensitivity": SensitivitySection(),
+                "specifications": [],
             }
         )
