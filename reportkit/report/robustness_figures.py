@@ -280,7 +280,7 @@ def _row_plot(rows: Sequence[PlotRow], title: str, x_label: str, main: float | N
         fig = _new_figure(PLOT_WIDTH, height)
         ax = fig.subplots()
         _draw_rows(ax, rows, main)
-        ax.set_xlabel(_wrap(x_label, 90))
+        ax.set_xlabel(_wrap(x_label, 60))
         ax.set_title(_wrap(title, 60), loc="left")
         fig.legend(loc="outside lower center", ncols=2, frameon=False, fontsize=8)
         return _to_svg(fig)
