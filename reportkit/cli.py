@@ -134,11 +134,16 @@ def demo(
 def check(spec: Annotated[Path, typer.Argument(help="The spec file (YAML).")]) -> None:
     """Validate SPEC and its data; print the sample and what would be estimated."""
     from reportkit import api
+    from reportkit.data.binary import binary_outcome, binary_treatment
+    from reportkit.data.named_columns import check_named_columns
     from reportkit.data.prepare import prepare
 
     try:
         loaded = api.load(spec)
         prepared = prepare(loaded)
+        check_named_columns(loaded, prepared.frame_columns, Path(loaded.spec.data.path).name)
+        binary_treatment(prepared, loaded)
+        binary_outcome(prepared, loaded)
     except ReportkitError as err:
         _fail(err)
         return

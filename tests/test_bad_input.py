@@ -129,6 +129,25 @@ CASES: dict[str, tuple[str, tuple[str, ...]]] = {
         spec_text(extra="estimators: [ols, tsls]\n"),
         ("tsls", "2sls"),
     ),
+    "misspelt column in a control variant": (
+        spec_text(extra="robustness:\n  control_sets:\n    - {name: more, add: [x11]}\n"),
+        ("robustness.control_sets[0].add[0]", "x11", "x1"),
+    ),
+    "misspelt column in a falsification filter": (
+        spec_text(
+            extra="balance:\n  falsification:\n    - name: none\n"
+            "      filters: [{column: regoin, keep_if: equal_to, value: north}]\n"
+        ),
+        ("balance.falsification[0].filters[0].column", "regoin", "region"),
+    ),
+    "binary treatment that is not 0/1": (
+        spec_text(model=BASE_MODEL + "  binary_treatment: {column: x1}\n"),
+        ("model.binary_treatment.column", "x1", "0 and 1"),
+    ),
+    "binary outcome that is not 0/1": (
+        spec_text(extra="robustness:\n  binary_outcome: {outcome: x1}\n"),
+        ("robustness.binary_outcome.outcome", "x1"),
+    ),
 }
 
 
@@ -141,6 +160,22 @@ def test_bad_input_exits_2(tmp_path: Path, case: str) -> None:
     spec, needles = CASES[case]
     proc = run_cli(tmp_path, spec)
     assert_clean_failure(tmp_path, proc, *needles)
+
+
+def test_check_command_names_a_misspelt_variant_column(tmp_path: Path) -> None:
+    write_data(tmp_path)
+    spec = spec_text(extra="robustness:\n  control_sets:\n    - {name: more, add: [x11]}\n")
+    (tmp_path / "spec.yaml").write_text(spec)
+    proc = subprocess.run(
+        [sys.executable, "-m", "reportkit", "check", "spec.yaml"],
+        cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert proc.returncode == 2
+    assert "robustness.control_sets[0].add[0]" in proc.stderr + proc.stdout
+    assert "Traceback" not in proc.stderr
 
 
 def test_unreadable_data_file(tmp_path: Path) -> None:

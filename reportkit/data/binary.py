@@ -27,15 +27,16 @@ def _column(prepared: PreparedData, name: str) -> np.ndarray:
     raise KeyError(name)
 
 
-def _check_binary(values: np.ndarray, name: str, loaded: LoadedSpec, field: FieldPath) -> None:
+def _check_binary(
+    values: np.ndarray, name: str, loaded: LoadedSpec, field: FieldPath, hint: str
+) -> None:
     present = values[np.isfinite(values)]
     other = present[(present != 0) & (present != 1)]
     if other.size:
         shown = ", ".join(format_value(v) for v in np.unique(other)[:3])
         raise DataError(
             f"column '{name}' must take only the values 0 and 1 (or true and false), but it "
-            f"also takes {shown}; name a 0/1 column, or give treated_above to turn a numeric "
-            "column into on/off",
+            f"also takes {shown}; {hint}",
             loaded.where(field),
         )
 
@@ -51,7 +52,13 @@ def binary_treatment(prepared: PreparedData, loaded: LoadedSpec) -> tuple[np.nda
     if spec.treated_above is not None:
         out = np.where(np.isfinite(values), (values > spec.treated_above).astype(float), np.nan)
         return out, f"{label} > {spec.treated_above:g}"
-    _check_binary(values, spec.column, loaded, ("model", "binary_treatment", "column"))
+    _check_binary(
+        values,
+        spec.column,
+        loaded,
+        ("model", "binary_treatment", "column"),
+        "name a 0/1 column, or give treated_above to turn a numeric column into on/off",
+    )
     return values, label
 
 
@@ -61,5 +68,11 @@ def binary_outcome(prepared: PreparedData, loaded: LoadedSpec) -> np.ndarray | N
     if spec is None:
         return None
     values = _column(prepared, spec.outcome)
-    _check_binary(values, spec.outcome, loaded, ("robustness", "binary_outcome", "outcome"))
+    _check_binary(
+        values,
+        spec.outcome,
+        loaded,
+        ("robustness", "binary_outcome", "outcome"),
+        "name a 0/1 or true/false outcome column in robustness.binary_outcome.outcome",
+    )
     return values
