@@ -14,14 +14,17 @@ pipeline does), in interleaved rounds (default 3) after one untimed warm-up call
   ``bench_engine.py --suite`` times it);
 - ``wild_bootstrap_tsls`` with 999 draws at cluster level and at observation level (HC1),
   each with Rademacher and with Webb draws, on the main fit's moments (the moments are
-  the main fit's work and are not counted again). Every bootstrap sample is re-partialled
-  on the controls and the fixed effect: at cluster level by the "coupled" path (the fixed
-  effect rules out the low-rank path; 50 clusters x 2 instruments = 100 masked columns
-  absorbed once); at observation level exactly (per draw) up to the module's
-  ``EXACT_ROWS_LIMIT`` rows (20,000) and by the documented partialled-space approximation
-  above it. The path each part took is printed;
-- where the time of the coupled path goes: the absorption of the masked instrument columns
-  (building the coupling arrays A and C, ``_CoupledScores``), timed alone once per round.
+  the main fit's work and are not counted again), given the design's fixed-effect codes
+  as the pipeline passes them. Every bootstrap sample is re-partialled on the controls and
+  the fixed effect: at cluster level by the "one effect" path (one fixed-effect dimension:
+  the coupling arrays A and C of the 50 clusters x 2 instruments in closed form, from
+  per-(cluster, level) sums); at observation level exactly up to the module's
+  ``EXACT_ROWS_LIMIT`` rows (20,000; "per draw", one absorption pass per draw) and by the
+  documented partialled-space approximation above it. The path each part took is printed;
+- the set-up of the coupling arrays alone, timed once per round: in closed form
+  (``_OneEffectScores``) and, with ``--absorbed``, by absorbing the 100 masked instrument
+  columns through pyhdfe (``_CoupledScores``, the general path that two or more fixed
+  effects take).
 
 Printed: median wall seconds (and range), median CPU seconds of this process, the ratio of
 each median to the main fit's, the peak memory each part allocates (tracemalloc traces
@@ -29,7 +32,7 @@ numpy's buffers; one extra call each, untimed) and the t statistics and p-values
 (the project's): cluster level within 5x the main fit, observation level within 30x.
 
 Run from the repository root:  python benchmarks/bench_wild_bootstrap.py
-(``--sizes 20000 100000 1000000 --draws 999 --rounds 3``)
+(``--sizes 20000 100000 1000000 --draws 999 --rounds 3 [--absorbed]``)
 """
 
 from __future__ import annotations
@@ -67,7 +70,8 @@ N_CLUSTERS = 50
 TRUE_BETA = 1.5  # the slope in bench_engine.make_design
 TARGETS = {"cluster": 5.0, "observation": 30.0}
 MAIN = "main fit: compute_moments + cluster index + tsls"
-COUPLING = "of which: coupling arrays (masked columns absorbed)"
+COUPLING = "of which: coupling arrays (one effect, closed form)"
+ABSORBED = "for comparison: coupling arrays (masked columns absorbed)"
 PARTS = [
     ("cluster", "rademacher"),
     ("cluster", "webb"),
@@ -84,15 +88,20 @@ def path_taken(m: Moments, design: Design, level: str, draws: int) -> str:
     """The module's choice of algorithm for this part (see its docstring)."""
     codes = design.clusters[:, 0] if level == "cluster" else None
     index = None if codes is None else wb._cluster_index(codes, m.n)
-    return wb._choose_path(m, index, draws)
+    one_effect = design.fixed_effects.shape[1] == 1
+    return wb._choose_path(m, index, draws, one_effect)
 
 
-def coupling_only(m: Moments, design: Design) -> object:
-    """The coupled path's set-up alone: the G q masked instrument columns absorbed."""
+def coupling_only(m: Moments, design: Design, absorbed: bool = False) -> object:
+    """The coupling arrays' set-up alone: in closed form (one fixed effect), or with
+    ``absorbed`` the G q masked instrument columns absorbed through pyhdfe."""
     index = wb._cluster_index(design.clusters[:, 0], m.n)
     fit = wb._restricted_fit(m, TRUE_BETA)
     sums = wb._unit_sums(m, fit, index)
-    return wb._CoupledScores(m, fit, sums, index)
+    if absorbed:
+        return wb._CoupledScores(m, fit, sums, index)
+    effect = wb._one_effect(m, design.fixed_effects[:, 0])
+    return wb._OneEffectScores(m, fit, sums, index, effect)
 
 
 def bootstrap_design(n: int, seed: int) -> Design:
@@ -125,6 +134,7 @@ def run_bootstrap(
         weights=weights,
         seed=seed,
         beta0=TRUE_BETA,
+        fixed_effects=design.fixed_effects,
     )
 
 
@@ -181,16 +191,22 @@ def bench_size(n: int, args: argparse.Namespace) -> SizeResult:
             res.cpu.setdefault(name, []).append(cpu)
             res.stats[name] = (boot.t_statistic, boot.p_value)  # type: ignore[attr-defined]
             res.paths[name] = path_taken(m, design, level, args.draws)
-        if any(p == "coupled" for p in res.paths.values()):
+        if any(p == "one effect" for p in res.paths.values()):
             wall, cpu, _ = timed(lambda mm=m: coupling_only(mm, design))
             res.wall.setdefault(COUPLING, []).append(wall)
             res.cpu.setdefault(COUPLING, []).append(cpu)
+        if args.absorbed:
+            wall, cpu, _ = timed(lambda mm=m: coupling_only(mm, design, absorbed=True))
+            res.wall.setdefault(ABSORBED, []).append(wall)
+            res.cpu.setdefault(ABSORBED, []).append(cpu)
         print(f"  n = {n:,}, round {r + 1} done (load {os.getloadavg()[0]:.2f})", flush=True)
     del m
     res.peak[MAIN] = peak_bytes(lambda: main_fit(design))
     m = main_fit(design)
     if COUPLING in res.wall:
         res.peak[COUPLING] = peak_bytes(lambda: coupling_only(m, design))
+    if ABSORBED in res.wall:
+        res.peak[ABSORBED] = peak_bytes(lambda: coupling_only(m, design, absorbed=True))
     for level, weights in PARTS:
         res.peak[part_name(level, weights)] = peak_bytes(
             lambda mm=m, lv=level, w=weights: run_bootstrap(
@@ -259,6 +275,11 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     ap.add_argument("--rounds", type=int, default=3, help="interleaved timed rounds")
     ap.add_argument("--seed", type=int, default=20_240, help="seed of the synthetic data")
     ap.add_argument("--bootstrap-seed", type=int, default=1, help="seed of the draws")
+    ap.add_argument(
+        "--absorbed",
+        action="store_true",
+        help="also time the coupling arrays by absorption (the general fixed-effect path)",
+    )
     ap.add_argument("--json", type=Path, help="also write every figure to this JSON file")
     return ap.parse_args(argv)
 

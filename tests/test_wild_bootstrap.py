@@ -49,7 +49,7 @@ from reportkit.variants.wild_bootstrap import wild_bootstrap_tsls
 TOL = 1e-10
 # the slope in helpers_design.random_design with one endogenous regressor: y = 0.8 x + ...
 TRUE_BETA = 0.8
-EXACT_PATHS = ("low rank", "coupled", "per draw")
+EXACT_PATHS = ("low rank", "coupled", "per draw")  # the general paths
 
 
 def reference_draws(seed: int, draws: int, units: int, weights: str) -> np.ndarray:
@@ -222,12 +222,107 @@ def test_path_choice_follows_the_documented_rule(monkeypatch: pytest.MonkeyPatch
     assert wb._choose_path(fe, hundred, 200) == "coupled"
     assert wb._choose_path(fe, None, 999) == "coupled"  # n q = 400 <= 999
     assert wb._choose_path(fe, None, 399) == "per draw"
+    # one fixed effect, its codes given (r = 2 controls, n (r + 2) = 800): closed-form
+    # coupling at cluster level when A and C fit and either G q <= draws or G^2 q <= 800
+    assert wb._choose_path(fe, ten, 999, True) == "one effect"
+    assert wb._choose_path(fe, ten, 19, True) == "one effect"  # G^2 q = 200 <= 800
+    assert wb._choose_path(fe, hundred, 200, True) == "one effect"  # as the coupled path
+    assert wb._choose_path(fe, hundred, 199, True) == "per draw"  # G^2 q = 20,000 > 800
+    assert wb._choose_path(fe, None, 999, True) == "coupled"  # observation level unchanged
+    assert wb._choose_path(fe, None, 399, True) == "per draw"
+    assert wb._choose_path(no_fe, ten, 999, True) == "low rank"
     monkeypatch.setattr(wb, "COUPLING_BYTES", 2 * 10 * 20 * 8 - 1)  # A and C would not fit
     assert wb._choose_path(fe, ten, 999) == "per draw"
+    assert wb._choose_path(fe, ten, 999, True) == "per draw"
     monkeypatch.setattr(wb, "EXACT_ROWS_LIMIT", 199)
     assert wb._choose_path(no_fe, None, 999) == "partialled"
     assert wb._choose_path(fe, None, 999) == "partialled"
     assert wb._choose_path(fe, ten, 999) == "per draw"  # clusters are always exact
+
+
+@pytest.mark.parametrize("clustered", [True, False])
+@pytest.mark.parametrize("weighted", [True, False])
+@pytest.mark.parametrize("c", [3, 0])
+def test_one_effect_path_equals_reference_loop(clustered: bool, weighted: bool, c: int) -> None:
+    # One fixed-effect dimension, its codes given: at cluster level the coupling arrays in
+    # closed form (P_W = P_F + Q Q'), chosen automatically; at observation level the codes
+    # change nothing (the general exact path). Source: the full-design reference loop
+    # (dummies as columns, linearmodels refit per draw), draw for draw.
+    d = random_design(37, n=160, q=2, c=c, n_fe=1, n_clusters=11, weighted=weighted)
+    m = compute_moments(d)
+    codes = d.clusters[:, 0] if clustered else None
+    index = None if codes is None else wb._cluster_index(codes, m.n)
+    assert wb._choose_path(m, index, 30, True) == ("one effect" if clustered else "per draw")
+    res = wild_bootstrap_tsls(
+        m,
+        cluster_codes=codes,
+        k=1 + m.k_exog,
+        draws=30,
+        weights="webb",
+        seed=12,
+        beta0=0.3,
+        fixed_effects=d.fixed_effects,
+    )
+    ref = full_design_loop(d, codes, 30, "webb", 12, 0.3)
+    np.testing.assert_allclose(res.t_draws, ref.t, rtol=TOL, atol=TOL)
+
+
+@pytest.mark.parametrize("clustered", [True, False])
+@pytest.mark.parametrize("recode", ["as given", "gaps", "negative"])
+def test_one_effect_path_equals_coupled_path(
+    monkeypatch: pytest.MonkeyPatch, clustered: bool, recode: str
+) -> None:
+    # The closed form (forced, also with one row per unit) against the coupled path forced
+    # (the masked instrument columns absorbed by pyhdfe), on the same draws; any integer
+    # labelling of the levels gives the same result (codes with unused values, negative
+    # codes). Source: the coupled path, itself checked against the full-design loop above.
+    d = random_design(39, n=240, q=3, c=2, n_fe=1, n_clusters=15, weighted=True)
+    m = compute_moments(d)
+    codes = d.clusters[:, 0] if clustered else None
+    fe = {"as given": d.fixed_effects, "gaps": 7 * d.fixed_effects + 3}.get(
+        recode, -5 * d.fixed_effects - 1
+    )
+    kw = {"cluster_codes": codes, "k": 1 + m.k_exog, "draws": 40, "weights": "webb", "seed": 2}
+    monkeypatch.setattr(wb, "_choose_path", lambda *_: "one effect")
+    fast = wild_bootstrap_tsls(m, fixed_effects=fe, **kw)
+    monkeypatch.setattr(wb, "_choose_path", lambda *_: "coupled")
+    coupled = wild_bootstrap_tsls(m, **kw)
+    np.testing.assert_allclose(fast.t_draws, coupled.t_draws, rtol=TOL, atol=TOL)
+    assert fast.t_statistic == pytest.approx(coupled.t_statistic, rel=TOL)
+
+
+def test_two_fixed_effects_given_take_the_general_paths() -> None:
+    # With two fixed-effect dimensions the codes are accepted and the absorbed paths used.
+    # Source: the full-design reference loop.
+    d = random_design(40, n=150, q=1, c=2, n_fe=2, n_clusters=10)
+    m = compute_moments(d)
+    res = wild_bootstrap_tsls(
+        m,
+        cluster_codes=d.clusters,
+        k=1 + m.k_exog,
+        draws=20,
+        weights="webb",
+        seed=6,
+        beta0=TRUE_BETA,
+        fixed_effects=d.fixed_effects,
+    )
+    ref = full_design_loop(d, d.clusters[:, 0], 20, "webb", 6, TRUE_BETA)
+    np.testing.assert_allclose(res.t_draws, ref.t, rtol=TOL, atol=TOL)
+
+
+def test_fixed_effect_codes_must_match_the_moments() -> None:
+    d = random_design(42, n=120, q=2, n_fe=1, n_clusters=10)
+    m = compute_moments(d)
+    kw = {"cluster_codes": d.clusters, "k": 1 + m.k_exog, "draws": 9, "weights": "webb", "seed": 1}
+    with pytest.raises(ValueError, match="shape \\(n, f\\)"):
+        wild_bootstrap_tsls(m, fixed_effects=d.fixed_effects[:50], **kw)
+    with pytest.raises(ValueError, match="partialled with fixed effects"):
+        wild_bootstrap_tsls(m, fixed_effects=np.zeros((m.n, 0), dtype=np.int64), **kw)
+    with pytest.raises(ValueError, match="integer codes"):
+        wild_bootstrap_tsls(m, fixed_effects=d.fixed_effects.astype(float), **kw)
+    no_fe = compute_moments(random_design(42, n=120, q=2, n_fe=0, n_clusters=10))
+    with pytest.raises(ValueError, match="partialled without fixed effects"):
+        wild_bootstrap_tsls(no_fe, fixed_effects=d.fixed_effects, **{**kw, "k": 1 + no_fe.k_exog})
 
 
 @pytest.mark.parametrize("clustered", [True, False])

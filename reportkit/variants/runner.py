@@ -154,6 +154,7 @@ def _wild(
             draws=settings.draws,
             weights=settings.weights,
             seed=seed,
+            fixed_effects=design.fixed_effects,
         )
     except (ValueError, np.linalg.LinAlgError) as exc:
         return NotApplicable(reason=str(exc))
