@@ -587,6 +587,17 @@ class Variant(_Frozen):
     n_obs: int | None
     covariance: str
     values: list[VariantValue] | NotApplicable
+    details: dict[str, float] = Field(
+        default_factory=dict,
+        description="Model-specific numbers, e.g. the control-function residual's coefficient "
+        "(a test of exogeneity in that model), the bivariate probit's error correlation, or the "
+        "average structural function at treatment on and off.",
+    )
+
+    @field_validator("details")
+    @classmethod
+    def _finite_details(cls, v: dict[str, float]) -> dict[str, float]:
+        return {k: x for k, x in v.items() if math.isfinite(x)}
 
 
 class ClusterDrop(_Frozen):

@@ -347,3 +347,32 @@ def test_direct_effects_must_name_an_instrument() -> None:
                 "sensitivity": {"direct_effects": {"x1": {"lower": -1, "upper": 1}}},
             }
         )
+
+
+def test_binary_model_details_are_kept_and_read() -> None:
+    from reportkit.variants.binary import detail_sentences
+
+    extra = {
+        "coef_residual": 0.0123,
+        "coef_residual_se": 0.004,
+        "coef_residual_p_value": 0.0021,
+        "rho": -0.31,
+        "rho_se": 0.12,
+        "asf_treated": 0.61,
+        "asf_untreated": 0.52,
+    }
+    text = " ".join(detail_sentences(extra))
+    assert "0.0123" in text and "p = 0.0021" in text and "exogenous" in text
+    assert "-0.31" in text and "0.61 with everyone treated" in text
+    variant = Variant(
+        key="binary:x",
+        group="binary",
+        name="x",
+        description="",
+        estimand="e",
+        n_obs=10,
+        covariance="bootstrap",
+        values=NotApplicable(reason="r"),
+        details={"rho": -0.31, "bad": float("nan")},
+    )
+    assert variant.details == {"rho": -0.31}  # non-finite numbers never reach results.json

@@ -51,6 +51,39 @@ MODEL_DESCRIPTIONS = {
 }
 
 
+def _num(x: float) -> str:
+    return f"{x:.3g}"
+
+
+def detail_sentences(extra: dict[str, float]) -> list[str]:
+    """The model-specific numbers worth reading, in words (all are also in ``details``)."""
+    out = []
+    if {"coef_residual", "coef_residual_se", "coef_residual_p_value"} <= extra.keys():
+        out.append(
+            f"Coefficient on the first-stage residual {_num(extra['coef_residual'])} (SE "
+            f"{_num(extra['coef_residual_se'])}, p = {_num(extra['coef_residual_p_value'])}): "
+            "within this model, a test that the treatment is exogenous."
+        )
+    if {"coef_endogenous_se_analytic", "coef_endogenous_se_bootstrap"} <= extra.keys():
+        out.append(
+            "Standard error of the treatment's coefficient: "
+            f"{_num(extra['coef_endogenous_se_analytic'])} by the two-step correction (Murphy & "
+            f"Topel 1985), {_num(extra['coef_endogenous_se_bootstrap'])} by the bootstrap."
+        )
+    if {"rho", "rho_se"} <= extra.keys():
+        out.append(
+            f"Correlation of the two equations' errors {_num(extra['rho'])} (SE "
+            f"{_num(extra['rho_se'])}); zero would mean the treatment is exogenous in this model."
+        )
+    if {"asf_treated", "asf_untreated"} <= extra.keys():
+        out.append(
+            "Average structural function: probability "
+            f"{_num(extra['asf_treated'])} with everyone treated, "
+            f"{_num(extra['asf_untreated'])} with no one treated."
+        )
+    return out
+
+
 def _rows(design: Design, present: np.ndarray) -> np.ndarray:
     """Positions of the rows where ``present``, rows alone in a fixed-effect group dropped."""
     idx = np.flatnonzero(present)
@@ -90,7 +123,8 @@ def _effect_variant(
         key=f"binary:{key}",
         group="binary",
         name=MODEL_NAMES[key],
-        description=description,
+        description=" ".join([description, *detail_sentences(effect.extra)]),
+        details=dict(effect.extra),
         estimand=quantity,
         n_obs=effect.n_obs,
         covariance=effect.std_error_method,
