@@ -266,6 +266,17 @@ def test_tables_have_scoped_header_cells(parsed: StrictParser) -> None:
     assert unscoped == []
 
 
+def test_tables_have_captions(parsed: StrictParser) -> None:
+    # WCAG 2.1 technique H39: a caption names each data table for screen-reader users
+    tables = parsed.root.find_all("table")
+    uncaptioned = [
+        where(t)
+        for t in tables
+        if not any(c.tag == "caption" and c.all_text().strip() for c in t.children)
+    ]
+    assert uncaptioned == []
+
+
 def test_images_have_alt_text(parsed: StrictParser) -> None:
     # WCAG 2.1 SC 1.1.1: every figure image describes itself in words
     images = parsed.root.find_all("img")
