@@ -71,8 +71,9 @@ def compliers_part(
         return NotApplicable(reason=f"the binary treatment ({text}) is missing in every row")
     clusters = None
     if spec.covariance == "cluster" and design.clusters.shape[1]:
-        counts = [int(design.clusters[:, k].max()) + 1 for k in range(design.clusters.shape[1])]
-        clusters = np.unique(design.clusters[rows, int(np.argmin(counts))], return_inverse=True)[1]
+        dim = design.coarsest_cluster
+        assert dim is not None
+        clusters = np.unique(design.clusters[rows, dim], return_inverse=True)[1]
     instrument = design.instrument_names[j]
     seed = derive_seed(spec.run.seed, "compliers")
     return complier_analysis(

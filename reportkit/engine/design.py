@@ -50,6 +50,17 @@ class Design:
         return int(self.y.shape[0])
 
     @property
+    def coarsest_cluster(self) -> int | None:
+        """The cluster dimension with the fewest clusters (None without clusters).
+
+        Procedures that resample or leave out whole clusters use it when the model clusters
+        two ways (resampling by the coarser dimension is the conservative choice)."""
+        if self.clusters.shape[1] == 0:
+            return None
+        counts = [int(self.clusters[:, d].max()) + 1 for d in range(self.clusters.shape[1])]
+        return int(np.argmin(counts))
+
+    @property
     def has_constant(self) -> bool:
         """A constant is included unless fixed effects absorb it."""
         return self.fixed_effects.shape[1] == 0
