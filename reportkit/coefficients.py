@@ -13,6 +13,17 @@ from reportkit.engine.estimators import EstimateArrays
 from reportkit.results import Coefficient
 
 
+def finite_coefficient_rows(
+    fit: EstimateArrays, names: tuple[str, ...], labels: dict[str, str], level: float
+) -> list[Coefficient] | None:
+    """``coefficient_rows``, or None when an estimate or a variance is not finite and positive
+    (a singular or degenerate fit that secondary analyses report as not applicable)."""
+    diag = np.diag(fit.cov)
+    if not (np.all(np.isfinite(fit.params)) and np.all(np.isfinite(diag)) and np.all(diag > 0)):
+        return None
+    return coefficient_rows(fit, names, labels, level)
+
+
 def coefficient_rows(
     fit: EstimateArrays, names: tuple[str, ...], labels: dict[str, str], level: float
 ) -> list[Coefficient]:

@@ -376,3 +376,49 @@ def test_binary_model_details_are_kept_and_read() -> None:
         details={"rho": -0.31, "bad": float("nan")},
     )
     assert variant.details == {"rho": -0.31}  # non-finite numbers never reach results.json
+
+
+def test_binary_models_with_two_endogenous_regressors(tmp_path: Path) -> None:
+    from reportkit.spec.models import BinaryOutcomeSection
+    from reportkit.variants.binary import binary_variants
+
+    frame = _frame()
+    frame["d2"] = frame["d"] * 0.5 + frame["x3"]
+    frame["z3"] = frame["x3"] + np.random.default_rng(3).normal(size=len(frame))
+    frame.to_csv(tmp_path / "data.csv", index=False)
+    spec = Spec.model_validate(
+        {
+            "study": {"title": "t"},
+            "data": {"path": "data.csv"},
+            "model": {"outcome": "y", "endogenous": ["d", "d2"], "instruments": ["z1", "z2", "z3"]},
+        }
+    )
+    design = prepare(LoadedSpec(spec=spec, base_dir=tmp_path)).design
+    y_bin = (design.y > np.median(design.y)).astype(float)
+    variants = binary_variants(
+        design,
+        y_bin,
+        None,
+        "",
+        BinaryOutcomeSection(outcome="y_bin"),
+        kind="robust",
+        labels={},
+        level=0.95,
+        master_seed=1,
+    )
+    linear = next(v for v in variants if v.key == "binary:linear_2sls")
+    # the linear probability 2SLS is defined for two regressors: linearmodels IV2SLS, robust
+    assert not isinstance(linear.values, NotApplicable)
+    ref = IV2SLS(
+        pd.Series(y_bin), pd.DataFrame({"const": np.ones(design.n)}),
+        pd.DataFrame(design.endog, columns=["d", "d2"]),
+        pd.DataFrame(design.instruments, columns=["z1", "z2", "z3"]),
+    ).fit(cov_type="robust", debiased=True)  # fmt: skip
+    for value, name in zip(linear.values, ["d", "d2"], strict=True):
+        assert value.estimate == pytest.approx(float(ref.params[name]), rel=RTOL)
+        assert value.std_error == pytest.approx(float(ref.std_errors[name]), rel=RTOL)
+    nonlinear = [v for v in variants if v.key != "binary:linear_2sls"]
+    assert len(nonlinear) == 4
+    for v in nonlinear:
+        assert isinstance(v.values, NotApplicable)
+        assert "one endogenous regressor; the model has 2" in v.values.reason

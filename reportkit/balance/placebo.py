@@ -16,21 +16,11 @@ import numpy as np
 
 from reportkit.balance.regression import Regression, coefficients, joint_test, regress
 from reportkit.balance.rows import select_rows
-from reportkit.coefficients import coefficient_rows
+from reportkit.coefficients import finite_coefficient_rows
 from reportkit.engine.covariance import CovType
 from reportkit.engine.design import Design
-from reportkit.engine.estimators import EstimateArrays, tsls
+from reportkit.engine.estimators import tsls
 from reportkit.results import Coefficient, NotApplicable, PlaceboResult
-
-
-def tsls_coefficients(
-    fit: EstimateArrays, names: tuple[str, ...], labels: dict[str, str], level: float
-) -> list[Coefficient] | None:
-    """2SLS coefficients with normal intervals at ``level``; None when not finite."""
-    diag = np.diag(fit.cov)
-    if not (np.all(np.isfinite(fit.params)) and np.all(np.isfinite(diag)) and np.all(diag > 0)):
-        return None
-    return coefficient_rows(fit, tuple(names), labels, level)
 
 
 def placebo_result(
@@ -96,7 +86,7 @@ def _tsls(
         fit = tsls(reg.moments, reg.cov)
     except np.linalg.LinAlgError:
         fit = None
-    coefs = None if fit is None else tsls_coefficients(fit, design.endog_names, labels, level)
+    coefs = None if fit is None else finite_coefficient_rows(fit, design.endog_names, labels, level)
     if coefs is None:
         return NotApplicable(
             reason="the instruments do not identify the endogenous regressors' coefficients "

@@ -29,6 +29,7 @@ from reportkit.variants.binary_models import (
     control_function_probit,
     two_stage_residual_inclusion,
 )
+from reportkit.variants.linear import variant_values
 
 MAX_EFFECT_LEVELS = 50  # the batched bootstrap costs draws x n x k^2; see bench_binary_bootstrap.py
 
@@ -155,21 +156,7 @@ def _linear(
 ) -> Variant:
     result = placebo_result(design, outcome, y_bin, kind=kind, labels=labels, level=level)  # type: ignore[arg-type]
     coefs = result.tsls
-    values: list[VariantValue] | NotApplicable
-    if isinstance(coefs, NotApplicable):
-        values = coefs
-    else:
-        values = [
-            VariantValue(
-                quantity=c.name,
-                estimate=c.estimate,
-                std_error=c.std_error,
-                ci_lower=c.ci_lower,
-                ci_upper=c.ci_upper,
-                p_value=c.p_value,
-            )
-            for c in coefs
-        ]
+    values = coefs if isinstance(coefs, NotApplicable) else variant_values(coefs)
     return Variant(
         key=f"binary:{key}",
         group="binary",
@@ -200,8 +187,7 @@ def binary_variants(
     """The binary-outcome group of variants (see the module docstring)."""
     outcome = settings.outcome
     outcome_label = labels.get(outcome, outcome)
-    endog = design.endog_names[0]
-    endog_label = labels.get(endog, endog)
+    endog_label = " and ".join(labels.get(e, e) for e in design.endog_names)
 
     def quantity(key: str) -> str:
         binary_treatment = key == "bivariate_probit" or (
@@ -256,13 +242,19 @@ def binary_variants(
     )
     clusters = None
     if kind == "cluster" and design.clusters.shape[1]:
-        counts = [int(design.clusters[:, d].max()) + 1 for d in range(design.clusters.shape[1])]
-        clusters = recode(design.clusters[rows][:, [int(np.argmin(counts))]])[:, 0]
+        dim = design.coarsest_cluster
+        assert dim is not None
+        clusters = recode(design.clusters[rows][:, [dim]])[:, 0]
     covariance = "cluster bootstrap" if clusters is not None else "bootstrap"
     for key in settings.models:
         description = MODEL_DESCRIPTIONS[key]
         problem = None
-        if levels > MAX_EFFECT_LEVELS:
+        if design.endog.shape[1] != 1:
+            problem = (
+                f"the nonlinear models here take one endogenous regressor; the model has "
+                f"{design.endog.shape[1]}"
+            )
+        elif levels > MAX_EFFECT_LEVELS:
             problem = (
                 f"the fixed effects have {levels} levels; nonlinear models with more than "
                 f"{MAX_EFFECT_LEVELS} fixed-effect indicators suffer the incidental-parameters "

@@ -16,13 +16,13 @@ from dataclasses import replace
 import numpy as np
 
 from reportkit.balance.rows import recode
-from reportkit.coefficients import coefficient_rows
+from reportkit.coefficients import coefficient_rows, finite_coefficient_rows
 from reportkit.data.singletons import singleton_rows
 from reportkit.engine.covariance import CovarianceSpec
 from reportkit.engine.design import Design
 from reportkit.engine.estimators import EstimateArrays, tsls
 from reportkit.engine.moments import compute_moments
-from reportkit.results import ClusterDrop, ClusterInfluence, NotApplicable
+from reportkit.results import ClusterDrop, ClusterInfluence, Coefficient, NotApplicable
 
 MAX_CLUSTERS = 200  # exact refits; beyond this the section says why it was skipped
 
@@ -62,9 +62,9 @@ def cluster_influence(
         return NotApplicable(
             reason="the model has no clusters; leave-one-cluster-out needs model.cluster_by"
         )
-    counts = [int(design.clusters[:, d].max()) + 1 for d in range(design.clusters.shape[1])]
-    dim = int(np.argmin(counts))
-    g_count = counts[dim]
+    dim = design.coarsest_cluster
+    assert dim is not None
+    g_count = int(design.clusters[:, dim].max()) + 1
     name = design.cluster_names[dim]
     if g_count > MAX_CLUSTERS:
         return NotApplicable(
@@ -77,40 +77,38 @@ def cluster_influence(
         )
     main_rows = coefficient_rows(main, design.endog_names, labels, level)
     codes = design.clusters[:, dim]
-    per_cluster: list[tuple[int, int, np.ndarray, np.ndarray]] = []
+    per_cluster: list[tuple[int, int, list[Coefficient]]] = []
     for g in range(g_count):
         keep = codes != g
         sub = _without(design, keep)
         cov = CovarianceSpec.build("cluster", sub.clusters)
         try:
-            fit = tsls(compute_moments(sub), cov)
-            se = np.sqrt(np.diag(fit.cov))
-            ok = bool(np.all(np.isfinite(fit.params)) and np.all(np.isfinite(se)))
+            rows = finite_coefficient_rows(
+                tsls(compute_moments(sub), cov), design.endog_names, labels, level
+            )
         except (np.linalg.LinAlgError, ValueError):
-            ok = False
-        if not ok:
+            rows = None
+        if rows is None:
             return NotApplicable(
                 reason=f"leaving out the {name} cluster '{cluster_labels[dim][g]}' leaves a "
                 "sample where 2SLS is not defined (singular first stage)"
             )
-        per_cluster.append((g, int((~keep).sum()), fit.params, se))
-    zcrit = _z(level)
+        per_cluster.append((g, int((~keep).sum()), rows))
     out = []
     for j, endog in enumerate(design.endog_names):
         base = main_rows[j]
         base_significant = base.ci_lower > 0 or base.ci_upper < 0
         drops = []
-        for g, n_rows, params, ses in per_cluster:
-            est, se = float(params[j]), float(ses[j])
-            significant = abs(est) > zcrit * se
+        for g, n_rows, rows in per_cluster:
+            c = rows[j]
             drops.append(
                 ClusterDrop(
                     cluster=cluster_labels[dim][g],
                     n_rows=n_rows,
-                    estimate=est,
-                    shift=est - base.estimate,
-                    std_error=se,
-                    significant=significant,
+                    estimate=c.estimate,
+                    shift=c.estimate - base.estimate,
+                    std_error=c.std_error,
+                    significant=c.ci_lower > 0 or c.ci_upper < 0,
                 )
             )
         drops.sort(key=lambda d: (-abs(d.shift), d.cluster))
@@ -128,9 +126,3 @@ def cluster_influence(
             )
         )
     return out
-
-
-def _z(level: float) -> float:
-    from scipy import stats
-
-    return float(stats.norm.ppf(0.5 + level / 2))

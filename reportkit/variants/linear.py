@@ -13,13 +13,13 @@ from dataclasses import replace
 
 import numpy as np
 
-from reportkit.coefficients import coefficient_rows
+from reportkit.coefficients import finite_coefficient_rows
 from reportkit.engine.covariance import CovarianceSpec
 from reportkit.engine.design import Design
 from reportkit.engine.estimators import EstimateArrays, gmm, liml, tsls
 from reportkit.engine.moments import Moments, compute_moments
 from reportkit.engine.more_estimators import fuller, jive
-from reportkit.results import NotApplicable, Variant, VariantGroup, VariantValue
+from reportkit.results import Coefficient, NotApplicable, Variant, VariantGroup, VariantValue
 
 EstimatorFunction = Callable[[Moments, CovarianceSpec], EstimateArrays]
 
@@ -61,13 +61,8 @@ def coefficient_text(labels: dict[str, str], names: Sequence[str]) -> str:
     return f"coefficient on {shown}"
 
 
-def fitted_values(
-    fit: EstimateArrays, names: Sequence[str], labels: dict[str, str], level: float
-) -> list[VariantValue] | NotApplicable:
-    """The fit as variant values; NotApplicable when estimates or variances are not finite."""
-    diag = np.diag(fit.cov)
-    if not (np.all(np.isfinite(fit.params)) and np.all(np.isfinite(diag)) and np.all(diag > 0)):
-        return NotApplicable(reason="the estimate or its variance is not finite for these data")
+def variant_values(coefficients: Sequence[Coefficient]) -> list[VariantValue]:
+    """Labelled coefficients as variant values (one per regressor)."""
     return [
         VariantValue(
             quantity=c.name,
@@ -77,8 +72,18 @@ def fitted_values(
             ci_upper=c.ci_upper,
             p_value=c.p_value,
         )
-        for c in coefficient_rows(fit, tuple(names), labels, level)
+        for c in coefficients
     ]
+
+
+def fitted_values(
+    fit: EstimateArrays, names: Sequence[str], labels: dict[str, str], level: float
+) -> list[VariantValue] | NotApplicable:
+    """The fit as variant values; NotApplicable when estimates or variances are not finite."""
+    rows = finite_coefficient_rows(fit, tuple(names), labels, level)
+    if rows is None:
+        return NotApplicable(reason="the estimate or its variance is not finite for these data")
+    return variant_values(rows)
 
 
 def safe_fit(

@@ -75,34 +75,17 @@ def robustness_checks(
     variants += trimming_variants(loaded, source, design.y, labels=labels, level=level)
     variants += control_variants(loaded, source, labels=labels, level=level)
     if rob.binary_outcome is not None and binary.outcome is not None:
-        if design.endog.shape[1] != 1:
-            reason = "the binary-outcome models take one endogenous regressor"
-            variants += [
-                v.model_copy(update={"values": NotApplicable(reason=reason)})
-                for v in binary_variants(
-                    design,
-                    binary.outcome,
-                    None,
-                    "",
-                    rob.binary_outcome.model_copy(update={"models": []}),
-                    kind=spec.covariance,
-                    labels=labels,
-                    level=level,
-                    master_seed=spec.run.seed,
-                )
-            ]
-        else:
-            variants += binary_variants(
-                design,
-                binary.outcome,
-                binary.treatment,
-                binary.treatment_text,
-                rob.binary_outcome,
-                kind=spec.covariance,
-                labels=labels,
-                level=level,
-                master_seed=spec.run.seed,
-            )
+        variants += binary_variants(
+            design,
+            binary.outcome,
+            binary.treatment,
+            binary.treatment_text,
+            rob.binary_outcome,
+            kind=spec.covariance,
+            labels=labels,
+            level=level,
+            master_seed=spec.run.seed,
+        )
 
     influence = (
         cluster_influence(
@@ -143,8 +126,8 @@ def _wild(
         )
     codes = None
     if kind == "cluster":
-        counts = [int(design.clusters[:, d].max()) + 1 for d in range(design.clusters.shape[1])]
-        codes = design.clusters[:, int(np.argmin(counts))]
+        dim = design.coarsest_cluster
+        codes = None if dim is None else design.clusters[:, dim]
     seed = derive_seed(loaded.spec.run.seed, "wild_bootstrap")
     try:
         boot = wild_bootstrap_tsls(
