@@ -31,11 +31,11 @@ from reportkit.report.figures import (
     POINTS,
     ZERO_LINE,
     FigureImage,
-    _new_figure,
-    _style,
-    _tidy_axes,
-    _to_svg,
-    _wrap,
+    figure_style,
+    new_figure,
+    tidy_axes,
+    to_svg,
+    wrap_label,
 )
 from reportkit.report.formatting import and_join, fmt_ci, fmt_int, fmt_num, fmt_pct
 from reportkit.results import (
@@ -166,7 +166,7 @@ def _draw_panel(
     ax.set_xlim(-0.6, len(bins) - 0.4)
     ticks, labels = _bin_ticks(bins)
     ax.set_xticks(ticks, labels, rotation=60, fontsize=7)
-    _tidy_axes(ax)
+    tidy_axes(ax)
     ax.grid(False, axis="x")
 
 
@@ -180,12 +180,12 @@ def complier_masses_svg(implication: LateImplication) -> str:
     bins = implication.bins
     _check_bins(bins)
     level = fmt_pct(implication.band_level)
-    with _style():
-        fig = _new_figure(*MASSES_SIZE)
+    with figure_style():
+        fig = new_figure(*MASSES_SIZE)
         axes = fig.subplots(1, 2, sharey=True, squeeze=False)[0]
         for ax, (title, *names) in zip(axes, PANELS, strict=True):
             _draw_panel(ax, bins, title, (names[0], names[1], names[2]), level)
-            ax.set_xlabel(_wrap(f"{implication.label}, by bin"))
+            ax.set_xlabel(wrap_label(f"{implication.label}, by bin"))
         axes[0].set_ylabel("Implied complier mass")
         found: dict[str, Any] = {}
         for ax in axes:
@@ -200,7 +200,7 @@ def complier_masses_svg(implication: LateImplication) -> str:
             frameon=False,
             fontsize=8,
         )
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def _panel_alt(bins: list[DensityBin], title: str, mass: str) -> str:

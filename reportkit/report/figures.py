@@ -161,33 +161,37 @@ def first_stage_key(index: int) -> str:
 
 
 @contextmanager
-def _style() -> Iterator[None]:
+def figure_style() -> Iterator[None]:
+    """The appendix's matplotlib settings (fonts, colours, SVG hash salt) for every figure."""
     import matplotlib
 
     with matplotlib.rc_context(_RC):
         yield
 
 
-def _new_figure(width: float, height: float) -> Figure:
+def new_figure(width: float, height: float) -> Figure:
+    """A figure of ``width`` x ``height`` inches, not registered with pyplot (no global state)."""
     from matplotlib.figure import Figure
 
     return Figure(figsize=(width, height), dpi=100, layout="constrained")
 
 
-def _to_svg(fig: Figure) -> str:
+def to_svg(fig: Figure) -> str:
+    """The figure as SVG text without a date, so the same figure gives the same bytes."""
     buffer = io.StringIO()
     fig.savefig(buffer, format="svg", metadata={"Date": None})
     return buffer.getvalue()
 
 
-def _tidy_axes(ax: Axes) -> None:
+def tidy_axes(ax: Axes) -> None:
+    """No top or right spine, a light grid behind the data."""
     ax.spines["top"].set_visible(False)
     ax.spines["right"].set_visible(False)
     ax.grid(True, color=GRID, linewidth=0.6)
     ax.set_axisbelow(True)
 
 
-def _wrap(text: str, width: int = WRAP_WIDTH) -> str:
+def wrap_label(text: str, width: int = WRAP_WIDTH) -> str:
     """Wrap a label for a figure; a dollar sign is escaped so it is not read as mathtext."""
     plain = text.replace("$", r"\$")
     return "\n".join(textwrap.wrap(plain, width, break_on_hyphens=False)) or plain
@@ -201,10 +205,10 @@ def _draw_binned(ax: Axes, binned: BinnedScatter, x_label: str, y_label: str) ->
     pad = 0.04 * (hi - lo) if hi > lo else 0.5
     xs = [lo - pad, hi + pad]
     ax.plot(xs, [binned.intercept + binned.slope * x for x in xs], color=FIT_LINE, linewidth=1.6)
-    ax.set_title(_wrap(f"{x_label}: fitted slope {fmt_num(binned.slope)}"), loc="left")
-    ax.set_xlabel(_wrap(f"{x_label} (adjusted)"))
-    ax.set_ylabel(_wrap(f"{y_label} (adjusted)"))
-    _tidy_axes(ax)
+    ax.set_title(wrap_label(f"{x_label}: fitted slope {fmt_num(binned.slope)}"), loc="left")
+    ax.set_xlabel(wrap_label(f"{x_label} (adjusted)"))
+    ax.set_ylabel(wrap_label(f"{y_label} (adjusted)"))
+    tidy_axes(ax)
 
 
 def first_stage_svg(first_stage: FirstStage, labels: Mapping[str, str]) -> str:
@@ -214,15 +218,15 @@ def first_stage_svg(first_stage: FirstStage, labels: Mapping[str, str]) -> str:
     panels = len(first_stage.binned)
     columns = min(panels, 2)
     rows = -(-panels // columns)
-    with _style():
-        fig = _new_figure(PANEL_SIZE[0] * columns, PANEL_SIZE[1] * rows)
+    with figure_style():
+        fig = new_figure(PANEL_SIZE[0] * columns, PANEL_SIZE[1] * rows)
         axes = fig.subplots(rows, columns, squeeze=False)
         for position, binned in enumerate(first_stage.binned):
             ax = axes[position // columns][position % columns]
             _draw_binned(ax, binned, label(binned.instrument, labels), first_stage.label)
         for position in range(panels, rows * columns):
             axes[position // columns][position % columns].set_visible(False)
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def _first_stage_alt(first_stage: FirstStage, labels: Mapping[str, str]) -> str:
@@ -248,8 +252,8 @@ def estimates_svg(results: StudyResults, index: int) -> str:
     estimates = _ordered(results.estimates)
     level = fmt_pct(results.conventions.confidence_level)
     height = ESTIMATES_BASE_HEIGHT + ESTIMATES_ROW_HEIGHT * len(estimates)
-    with _style():
-        fig = _new_figure(ESTIMATES_WIDTH, height)
+    with figure_style():
+        fig = new_figure(ESTIMATES_WIDTH, height)
         ax = fig.subplots()
         positions = list(range(len(estimates)))[::-1]  # first estimator on top
         for y, result in zip(positions, estimates, strict=True):
@@ -264,12 +268,12 @@ def estimates_svg(results: StudyResults, index: int) -> str:
         ax.set_ylim(-0.7, len(estimates) - 0.3)
         outcome = label(results.model.outcome, results.model.labels)
         effect = f"Effect of {_coefficient(estimates[0], name).label} on {outcome}"
-        ax.set_xlabel(_wrap(effect, 90))
+        ax.set_xlabel(wrap_label(effect, 90))
         ax.set_title(f"Estimates with {level} confidence intervals", loc="left")
-        _tidy_axes(ax)
+        tidy_axes(ax)
         ax.grid(False, axis="y")
         ax.tick_params(axis="y", length=0)
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def _coefficient(result: EstimatorResult, name: str) -> Coefficient:
@@ -337,8 +341,8 @@ def p_value_curve_svg(weak_iv: WeakIVRobust, confidence_level: float) -> str:
     _check_curve(curve)
     alpha = round(1.0 - confidence_level, 10)
     span = (min(curve.beta0), max(curve.beta0))
-    with _style():
-        fig = _new_figure(*CURVE_SIZE)
+    with figure_style():
+        fig = new_figure(*CURVE_SIZE)
         ax = fig.subplots()
         _shade_set(
             ax,
@@ -387,12 +391,12 @@ def p_value_curve_svg(weak_iv: WeakIVRobust, confidence_level: float) -> str:
             ax.axvline(0.0, color=ZERO_LINE, linewidth=0.9, linestyle=(0, (4, 3)))
         ax.set_xlim(*span)
         ax.set_ylim(0.0, 1.0)
-        ax.set_xlabel(_wrap(f"Hypothesised coefficient of {weak_iv.label}", 90))
+        ax.set_xlabel(wrap_label(f"Hypothesised coefficient of {weak_iv.label}", 90))
         ax.set_ylabel("p-value")
         ax.set_title("Which coefficient values the data reject", loc="left")
-        _tidy_axes(ax)
+        tidy_axes(ax)
         fig.legend(loc="outside lower center", ncols=2, frameon=False, fontsize=8)
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def _p_value_at(beta0: list[float], p_values: list[float], value: float) -> float | None:
@@ -515,8 +519,8 @@ def balance_svg(balance: Balance, labels: Mapping[str, str]) -> str:
     span = max(BALANCE_MIN_SPAN, 1.15 * max(drawn))
     per_covariate = BALANCE_ROW_HEIGHT * len(instruments) + BALANCE_ROW_PAD
     height = BALANCE_BASE_HEIGHT + per_covariate * len(covariates)
-    with _style():
-        fig = _new_figure(BALANCE_WIDTH, height)
+    with figure_style():
+        fig = new_figure(BALANCE_WIDTH, height)
         ax = fig.subplots()
         ax.axvspan(
             -band,
@@ -541,18 +545,18 @@ def balance_svg(balance: Balance, labels: Mapping[str, str]) -> str:
                 marker=marker,
                 markersize=6,
                 color=colour,
-                label=_wrap(name, 60),
+                label=wrap_label(name, 60),
             )
-        ax.set_yticks(centres, [_wrap(c, 28) for c in covariates])
+        ax.set_yticks(centres, [wrap_label(c, 28) for c in covariates])
         ax.set_ylim(-0.7, len(covariates) - 0.3)
         ax.set_xlim(-span, span)
         ax.set_xlabel("Standardized difference, last group minus first (pooled SDs)")
         ax.set_title("Covariate balance across instrument groups", loc="left")
-        _tidy_axes(ax)
+        tidy_axes(ax)
         ax.grid(False, axis="y")
         ax.tick_params(axis="y", length=0)
         fig.legend(loc="outside lower center", ncols=min(3, count + 1), frameon=False, fontsize=8)
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def _balance_alt(balance: Balance, labels: Mapping[str, str]) -> str:

@@ -33,11 +33,11 @@ from reportkit.report.figures import (
     POINTS,
     ZERO_LINE,
     FigureImage,
-    _new_figure,
-    _style,
-    _tidy_axes,
-    _to_svg,
-    _wrap,
+    figure_style,
+    new_figure,
+    tidy_axes,
+    to_svg,
+    wrap_label,
 )
 from reportkit.report.formatting import (
     and_join,
@@ -243,7 +243,7 @@ def _layout(rows: Sequence[PlotRow]) -> tuple[list[float], list[tuple[float, str
             ticks.append((y, GROUP_TITLES[row.group], True))
         y += 1.0
         positions.append(y)
-        ticks.append((y, _wrap(row.label, LABEL_WIDTH), False))
+        ticks.append((y, wrap_label(row.label, LABEL_WIDTH), False))
         previous = row.group
     return positions, ticks
 
@@ -266,7 +266,7 @@ def _draw_rows(ax: Axes, rows: Sequence[PlotRow], main: float | None) -> float:
             tick.set_fontweight("bold")
     depth = positions[-1] + 1.0
     ax.set_ylim(depth - 0.3, -0.7)
-    _tidy_axes(ax)
+    tidy_axes(ax)
     ax.grid(False, axis="y")
     ax.tick_params(axis="y", length=0)
     return depth
@@ -276,14 +276,14 @@ def _row_plot(rows: Sequence[PlotRow], title: str, x_label: str, main: float | N
     """A grouped dot-and-interval plot on one axis; each group under a bold heading."""
     positions, _ = _layout(rows)
     height = BASE_HEIGHT + ROW_HEIGHT * (positions[-1] + 1.0)
-    with _style():
-        fig = _new_figure(PLOT_WIDTH, height)
+    with figure_style():
+        fig = new_figure(PLOT_WIDTH, height)
         ax = fig.subplots()
         _draw_rows(ax, rows, main)
-        ax.set_xlabel(_wrap(x_label, 60))
-        ax.set_title(_wrap(title, 60), loc="left")
+        ax.set_xlabel(wrap_label(x_label, 60))
+        ax.set_title(wrap_label(title, 60), loc="left")
         fig.legend(loc="outside lower center", ncols=2, frameon=False, fontsize=8)
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def binary_panels(rows: Sequence[PlotRow]) -> list[tuple[str, list[PlotRow]]]:
@@ -300,16 +300,16 @@ def binary_svg(robustness: Robustness) -> str:
     if not panels:
         raise ValueError("no binary-outcome model has an estimate; there is nothing to draw")
     heights = [PANEL_BASE + ROW_HEIGHT * (len(rows) + 0.5) for _, rows in panels]
-    with _style():
-        fig = _new_figure(PLOT_WIDTH, sum(heights) + 0.5)
+    with figure_style():
+        fig = new_figure(PLOT_WIDTH, sum(heights) + 0.5)
         axes = fig.subplots(len(panels), 1, squeeze=False, height_ratios=heights)
         for ax, (estimand, rows) in zip(axes[:, 0], panels, strict=True):
             _draw_rows(ax, rows, None)
-            ax.set_title(_wrap(upper_first(estimand), 50), loc="left", fontsize=8.5)
+            ax.set_title(wrap_label(upper_first(estimand), 50), loc="left", fontsize=8.5)
         axes[-1][0].set_xlabel("Estimate, in the units of each panel's estimand")
         handles, texts = axes[0][0].get_legend_handles_labels()
         fig.legend(handles, texts, loc="outside lower center", frameon=False, fontsize=8)
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def _range_text(rows: Sequence[PlotRow]) -> str:
@@ -433,8 +433,8 @@ def influence_svg(influence: ClusterInfluence, full_estimate: float) -> str:
     excludes zero."""
     drops = sorted(influence.drops, key=lambda d: (d.estimate, d.cluster))
     ranks = list(range(1, len(drops) + 1))
-    with _style():
-        fig = _new_figure(*INFLUENCE_SIZE)
+    with figure_style():
+        fig = new_figure(*INFLUENCE_SIZE)
         ax = fig.subplots()
         ax.axhline(full_estimate, color=MAIN_LINE, linewidth=1.0, label="full sample")
         ax.axhline(0.0, color=ZERO_LINE, linewidth=0.9, linestyle=(0, (4, 3)), label="zero")
@@ -466,14 +466,14 @@ def influence_svg(influence: ClusterInfluence, full_estimate: float) -> str:
         ax.set_xlabel(
             f"Clusters of {influence.cluster_variable}, sorted by the estimate without them"
         )
-        ax.set_ylabel(_wrap(f"Effect of {influence.label}", 40))
+        ax.set_ylabel(wrap_label(f"Effect of {influence.label}", 40))
         ax.set_title(
             f"Leaving out one of {fmt_int(influence.n_clusters)} clusters at a time", loc="left"
         )
-        _tidy_axes(ax)
+        tidy_axes(ax)
         ax.grid(False, axis="x")
         fig.legend(loc="outside lower center", ncols=4, frameon=False, fontsize=8)
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def influence_figure(
@@ -537,8 +537,8 @@ def sensitivity_svg(sensitivity: ExclusionSensitivity, outcome: str) -> str:
     rows = -(-len(panels) // columns)
     from matplotlib.ticker import MaxNLocator
 
-    with _style():
-        fig = _new_figure(SENSITIVITY_PANEL[0] * columns, SENSITIVITY_PANEL[1] * rows + 0.4)
+    with figure_style():
+        fig = new_figure(SENSITIVITY_PANEL[0] * columns, SENSITIVITY_PANEL[1] * rows + 0.4)
         axes = fig.subplots(rows, columns, squeeze=False)
         for position, (name, points) in enumerate(panels):
             ax = axes[position // columns][position % columns]
@@ -574,10 +574,10 @@ def sensitivity_svg(sensitivity: ExclusionSensitivity, outcome: str) -> str:
             high = max(0.0, *(p.ci_upper for p in points))
             pad = 0.06 * (high - low) if high > low else 0.5
             ax.set_ylim(low - pad, high + pad)
-            ax.set_title(_wrap(f"Direct effect of {name} allowed"), loc="left")
-            ax.set_xlabel(_wrap(f"Direct effect on {outcome} per unit of {name}"))
-            ax.set_ylabel(_wrap(f"Effect of {sensitivity.label}"))
-            _tidy_axes(ax)
+            ax.set_title(wrap_label(f"Direct effect of {name} allowed"), loc="left")
+            ax.set_xlabel(wrap_label(f"Direct effect on {outcome} per unit of {name}"))
+            ax.set_ylabel(wrap_label(f"Effect of {sensitivity.label}"))
+            tidy_axes(ax)
             ax.grid(True, color=GRID, linewidth=0.6)
         for position in range(len(panels), rows * columns):
             axes[position // columns][position % columns].set_visible(False)
@@ -596,7 +596,7 @@ def sensitivity_svg(sensitivity: ExclusionSensitivity, outcome: str) -> str:
             frameon=False,
             fontsize=8,
         )
-        return _to_svg(fig)
+        return to_svg(fig)
 
 
 def sensitivity_figure(sensitivity: ExclusionSensitivity, index: int, outcome: str) -> FigureImage:
